@@ -1,0 +1,298 @@
+"""Exact operating characteristic and sample-number distribution of a Bernoulli SPRT.
+
+Every path of n units with d nonconforming has probability p**d (1-p)**(n-d),
+whatever its order, and whether a path is still open depends on the path only.
+So the number of paths K(n, d) that first reach a boundary at (n, d) does not
+depend on the true rate, and for any rate p
+
+    P(stop at (n, d) | p) = K(n, d) p**d (1-p)**(n-d).
+
+K is built once per plan by the usual forward recursion over the open band of
+the (n, d) lattice (kept in logarithms, so counts of any size are exact to
+rounding), and then every rate is evaluated at once, vectorised over p. An
+untruncated plan is followed until the mass still open is below 1e-12 for every
+rate asked for; a capped plan decides what is open at N by the cut rule.
+
+References
+----------
+.. [1] A. Wald, "Sequential Analysis", Wiley, 1947, appendix A.2 (exact OC and
+       ASN of a binomial test by counting paths that have not yet stopped).
+.. [2] C. Jennison and B. W. Turnbull, "Group Sequential Methods with
+       Applications to Clinical Trials", Chapman & Hall/CRC, 2000, ch. 19
+       (recursive computation of exit probabilities).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.special import xlog1py, xlogy
+
+from .sprt import SprtPlan
+
+#: Untruncated plans run until the open mass is below this for every rate.
+RESIDUAL_TOL = 1e-12
+#: Safety stop for plans whose open mass decays too slowly; the residual
+#: left at that point is reported, never hidden.
+MAX_STEPS = 200_000
+_BLOCK = 4096
+_CHECK_EVERY = 64
+
+
+def _log_weight(n, d, p):
+    """log(p**d (1-p)**(n-d)) for lattice points (n, d: shape M) and rates p (shape P): (P, M).
+
+    Inner rates use a plain outer product; the rows p = 0 and p = 1 go through
+    xlogy so that 0 * log 0 counts as 0.
+    """
+    p = np.asarray(p, dtype=float).reshape(-1, 1)
+    n = np.asarray(n)
+    d = np.asarray(d)
+    inner = (p[:, 0] > 0.0) & (p[:, 0] < 1.0)
+    if inner.all():
+        return np.log(p) * d + np.log1p(-p) * (n - d)
+    out = np.empty((p.shape[0], np.broadcast(n, d).size))
+    pi = p[inner]
+    out[inner] = np.log(pi) * d + np.log1p(-pi) * (n - d)
+    out[~inner] = xlogy(d, p[~inner]) + xlog1py(n - d, -p[~inner])
+    return out
+
+
+class PathCounts:
+    """Log-counts of the paths that first stop at each lattice point of a plan.
+
+    The recursion can be continued: :meth:`evaluate` advances it until the
+    rates it is asked about have less than ``residual_tol`` still open.
+    """
+
+    def __init__(self, plan: SprtPlan, max_steps: int = MAX_STEPS):
+        self.plan = plan
+        self.horizon = plan.max_units if plan.max_units is not None else max_steps
+        self.n = 0
+        self.lo = self.hi = 0            # open d range at self.n
+        self._open = np.zeros(1)         # log K(n, d) for d in [lo, hi]: one path at (0, 0)
+        self._chunks = {True: [], False: []}   # flag?: list of (n, d, logk) arrays
+        self._joined = {}
+        self.finished = False
+
+    @property
+    def open_logk(self) -> tuple[np.ndarray, np.ndarray]:
+        """(d, log K) of the points still open at ``self.n``."""
+        if self.finished or self.hi < self.lo:
+            return np.zeros(0, dtype=np.int64), np.zeros(0)
+        return np.arange(self.lo, self.hi + 1), self._open.copy()
+
+    def residual(self, p) -> np.ndarray:
+        """Probability still open at ``self.n`` for each rate in ``p``."""
+        p = np.atleast_1d(np.asarray(p, dtype=float))
+        d, logk = self.open_logk
+        if d.size == 0:
+            return np.zeros(p.size)
+        return _sum_exp(logk + _log_weight(self.n, d, p))
+
+    def _add_points(self, flag: bool, n, d, logk) -> None:
+        keep = logk > -np.inf
+        if keep.any():
+            self._chunks[flag].append((n[keep], d[keep], logk[keep]))
+            self._joined.pop(flag, None)
+
+    def _advance_block(self, p_check, residual_tol) -> None:
+        plan, n0 = self.plan, self.n
+        m = min(_BLOCK, self.horizon - n0)
+        ns = np.arange(n0 + 1, n0 + m + 1)
+        new_lo = np.maximum(plan.acceptance_numbers(ns) + 1, 0)
+        new_hi = np.minimum(plan.rejection_numbers(ns) - 1, ns)
+        cols = int(max((new_hi - new_lo).max(initial=0), self.hi - self.lo)) + 3
+        hist = np.full((m, cols), -np.inf)   # row i: log K at n0+i+1 for d from row_lo[i]
+        row_lo = np.empty(m, dtype=np.int64)
+        row_w = np.empty(m, dtype=np.int64)
+        lo_list, hi_list = new_lo.tolist(), new_hi.tolist()
+        logaddexp = np.logaddexp
+        src, lo, hi = self._open, self.lo, self.hi
+        check = p_check is not None
+        used = m
+        for i in range(m):
+            w = hi - lo + 1
+            dst = hist[i]
+            # K(n, d) = K(n-1, d) + K(n-1, d-1) over d in [lo, hi + 1]
+            dst[:w] = src
+            logaddexp(dst[1:w + 1], src, out=dst[1:w + 1])
+            row_lo[i] = lo
+            row_w[i] = w + 1
+            nl, nh = lo_list[i], hi_list[i]
+            src = dst[nl - lo:nh - lo + 1]
+            lo, hi = nl, nh
+            if hi < lo:
+                self.finished = True
+                used = i + 1
+                break
+            if check and (n0 + i + 1) % _CHECK_EVERY == 0:
+                if _sum_exp(src + _log_weight(n0 + i + 1, np.arange(lo, hi + 1),
+                                              p_check)).max() < residual_tol:
+                    used = i + 1
+                    break
+        # Everything that left the band during the block, found in one pass.
+        hist, row_lo, row_w = hist[:used], row_lo[:used], row_w[:used]
+        d_grid = row_lo[:, None] + np.arange(cols)
+        n_grid = np.broadcast_to(ns[:used, None], d_grid.shape)
+        filled = np.arange(cols) < row_w[:, None]
+        for flag, mask in ((False, filled & (d_grid < new_lo[:used, None])),
+                           (True, filled & (d_grid > new_hi[:used, None]))):
+            self._add_points(flag, n_grid[mask], d_grid[mask], hist[mask])
+        self._open = src.copy() if hi >= lo else np.zeros(0)
+        self.lo, self.hi, self.n = lo, hi, n0 + used
+        if self.n == self.horizon and plan.max_units is not None and not self.finished:
+            self._decide_at_cap()
+
+    def _decide_at_cap(self) -> None:
+        """Split what is open at the cap N: flag iff LLR(N, d) >= cut_llr."""
+        d, logk = self.open_logk
+        flag = d >= int(self.plan.cut_numbers(self.n))
+        n = np.full(d.size, self.n, dtype=np.int64)
+        self._add_points(False, n[~flag], d[~flag], logk[~flag])
+        self._add_points(True, n[flag], d[flag], logk[flag])
+        self.finished = True
+
+    def advance_until(self, p, residual_tol: float = RESIDUAL_TOL) -> None:
+        """Continue the recursion until every rate in ``p`` has < ``residual_tol`` open."""
+        p = np.atleast_1d(np.asarray(p, dtype=float))
+        capped = self.plan.max_units is not None
+        while not self.finished and self.n < self.horizon:
+            if not capped and self.residual(p).max() < residual_tol:
+                return
+            self._advance_block(None if capped else p, residual_tol)
+
+    def points(self, flag: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(n, d, log K) of every point where paths stop flagged (or cleared), in n order."""
+        if flag not in self._joined:
+            chunks = self._chunks[flag]
+            if chunks:
+                self._joined[flag] = tuple(np.concatenate(c) for c in zip(*chunks))
+            else:
+                self._joined[flag] = (np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64),
+                                      np.zeros(0))
+        return self._joined[flag]
+
+    def _mass(self, flag: bool, p: np.ndarray):
+        ns, ds, ks = self.points(flag)
+        return ns, np.exp(ks + _log_weight(ns, ds, p))
+
+    def summary(self, p, residual_tol: float = RESIDUAL_TOL) -> "ExactSummary":
+        """P(flag), P(clear), E[N] and residual at each rate, without per-n arrays."""
+        p = _rates(p)
+        self.advance_until(p, residual_tol)
+        nf, mf = self._mass(True, p)
+        nc, mc = self._mass(False, p)
+        return ExactSummary(p=p, p_flag=mf.sum(axis=1), p_clear=mc.sum(axis=1),
+                            asn=mf @ nf + mc @ nc, residual=self.residual(p))
+
+    def evaluate(self, p, residual_tol: float = RESIDUAL_TOL) -> "ExactResult":
+        """Exact figures of the plan at every rate in ``p`` (vectorised over p)."""
+        p = _rates(p)
+        self.advance_until(p, residual_tol)
+        width = self.n + 1
+        by_n = {}
+        for flag in (True, False):
+            ns, mass = self._mass(flag, p)
+            out = np.zeros((p.size, width))
+            if ns.size:
+                starts = np.flatnonzero(np.r_[True, ns[1:] != ns[:-1]])
+                out[:, ns[starts]] = np.add.reduceat(mass, starts, axis=1)
+            by_n[flag] = out
+        return ExactResult(p=p, p_flag=by_n[True].sum(axis=1), p_clear=by_n[False].sum(axis=1),
+                           residual=self.residual(p), flag_by_n=by_n[True], clear_by_n=by_n[False])
+
+
+def _rates(p) -> np.ndarray:
+    p = np.atleast_1d(np.asarray(p, dtype=float))
+    if np.any(~np.isfinite(p)) or np.any((p < 0) | (p > 1)):
+        raise ValueError("rates must lie in [0, 1]")
+    return p
+
+
+def _sum_exp(lw: np.ndarray) -> np.ndarray:
+    """sum(exp(lw), axis=1) without overflow (rows may be all -inf)."""
+    top = lw.max(axis=1, keepdims=True)
+    top = np.where(np.isfinite(top), top, 0.0)
+    return np.exp(top[:, 0]) * np.exp(lw - top).sum(axis=1)
+
+
+@dataclass(frozen=True)
+class ExactSummary:
+    """P(flag), P(clear), E[N] and the open residual at each rate in ``p``."""
+
+    p: np.ndarray
+    p_flag: np.ndarray
+    p_clear: np.ndarray
+    asn: np.ndarray
+    residual: np.ndarray
+
+
+@dataclass(frozen=True)
+class ExactResult:
+    """Exact figures of one plan at each rate in ``p``.
+
+    Attributes
+    ----------
+    p : ndarray, shape (P,)
+    p_flag, p_clear : ndarray, shape (P,)
+        Probability that the plan ends flagged / cleared.
+    residual : ndarray, shape (P,)
+        Mass still open when the computation stopped (0 for capped plans).
+    flag_by_n, clear_by_n : ndarray, shape (P, n_max + 1)
+        Probability of ending flagged / cleared at exactly n units (column n).
+    """
+
+    p: np.ndarray
+    p_flag: np.ndarray
+    p_clear: np.ndarray
+    residual: np.ndarray
+    flag_by_n: np.ndarray
+    clear_by_n: np.ndarray
+
+    def subset(self, rows) -> "ExactResult":
+        """The figures for a slice or index array of the rates."""
+        return ExactResult(p=self.p[rows], p_flag=self.p_flag[rows], p_clear=self.p_clear[rows],
+                           residual=self.residual[rows], flag_by_n=self.flag_by_n[rows],
+                           clear_by_n=self.clear_by_n[rows])
+
+    @property
+    def stop_by_n(self) -> np.ndarray:
+        return self.flag_by_n + self.clear_by_n
+
+    @property
+    def asn(self) -> np.ndarray:
+        """Expected number of units to a decision, E[N]."""
+        n = np.arange(self.stop_by_n.shape[1])
+        return self.stop_by_n @ n
+
+    @property
+    def sd(self) -> np.ndarray:
+        """Standard deviation of the number of units to a decision."""
+        n = np.arange(self.stop_by_n.shape[1], dtype=float)
+        second = self.stop_by_n @ (n * n)
+        return np.sqrt(np.maximum(second - self.asn ** 2, 0.0))
+
+    def quantile(self, q: float) -> np.ndarray:
+        """Smallest n with P(N <= n) >= q, per rate (-1 where not reached)."""
+        cdf = np.cumsum(self.stop_by_n, axis=1)
+        reached = cdf >= q - 1e-12
+        first = np.argmax(reached, axis=1)
+        return np.where(reached.any(axis=1), first, -1)
+
+
+def run_exact(plan: SprtPlan, p, residual_tol: float = RESIDUAL_TOL,
+              max_steps: int = MAX_STEPS) -> ExactResult:
+    """Exact exit probabilities of ``plan`` at each true rate in ``p``.
+
+    Parameters
+    ----------
+    plan : SprtPlan
+    p : array_like of float in [0, 1]
+    residual_tol : float
+        Untruncated plans stop once every rate's open mass is below this.
+    max_steps : int
+        Hard limit on units for untruncated plans; whatever is still open
+        then is returned as ``residual``.
+    """
+    return PathCounts(plan, max_steps=max_steps).evaluate(p, residual_tol)

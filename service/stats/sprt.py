@@ -1,0 +1,193 @@
+"""Wald's sequential probability ratio test for a Bernoulli rate.
+
+The test compares H0: rate = p0 against H1: rate = p1 (p0 < p1). After n units
+of which d were nonconforming, the log-likelihood ratio is
+
+    LLR(n, d) = d * ln(p1/p0) - (n - d) * ln((1-p0)/(1-p1))
+              = d * (g1 + g2) - n * g2,
+
+with g1 = ln(p1/p0) and g2 = ln((1-p0)/(1-p1)). The test flags (accepts H1)
+when LLR >= a and clears (accepts H0) when LLR <= b, where Wald's boundaries are
+a = ln((1-beta)/alpha) and b = ln(beta/(1-alpha)).
+
+References
+----------
+.. [1] A. Wald, "Sequential Analysis", Wiley, 1947, ch. 5.
+.. [2] NIST/SEMATECH e-Handbook of Statistical Methods, section 6.2.6,
+       "What is Sequential Sampling?" (the same plan as two parallel lines in
+       the (n, d) plane: d = -h1 + s n and d = h2 + s n).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+#: Lattice LLR values within this distance of a boundary count as on it, so
+#: that a point lying exactly on a line is not lost to rounding.
+BOUNDARY_TOL = 1e-9
+
+MONITORING = "monitoring"
+FLAGGED = "flagged"
+CLEARED = "cleared"
+
+
+class PlanInputError(ValueError):
+    """A plan parameter out of range; ``argument`` names it."""
+
+    def __init__(self, argument: str, message: str):
+        super().__init__(message)
+        self.argument = argument
+
+
+def check_rates(p0: float, p1: float, alpha: float, beta: float,
+                max_units: int | None = None, cut_llr: float = 0.0) -> None:
+    """Raise :class:`PlanInputError` naming the first argument that is out of range."""
+    for name, value in (("p0", p0), ("p1", p1), ("alpha", alpha), ("beta", beta)):
+        if isinstance(value, bool) or not isinstance(value, (int, float, np.floating)) \
+                or not math.isfinite(value):
+            raise PlanInputError(name, f"{name} must be a finite number, got {value!r}")
+        if not 0.0 < value < 1.0:
+            raise PlanInputError(name, f"{name} must lie strictly between 0 and 1, got {value}")
+    if p0 >= p1:
+        raise PlanInputError("p1", f"p1 must be larger than p0, got p0={p0} and p1={p1}")
+    if alpha + beta >= 1.0:
+        raise PlanInputError("beta", f"alpha + beta must be below 1, got alpha={alpha} and "
+                             f"beta={beta}")
+    if max_units is not None:
+        if isinstance(max_units, bool) or not isinstance(max_units, (int, np.integer)):
+            raise PlanInputError("max_units",
+                                 f"max_units must be a whole number, got {max_units!r}")
+        if max_units < 1:
+            raise PlanInputError("max_units", f"max_units must be at least 1, got {max_units}")
+    if isinstance(cut_llr, bool) or not isinstance(cut_llr, (int, float, np.floating)) \
+            or not math.isfinite(cut_llr):
+        raise PlanInputError("cut_llr", f"cut_llr must be a finite number, got {cut_llr!r}")
+
+
+@dataclass(frozen=True)
+class SprtPlan:
+    """A Bernoulli SPRT with boundaries on the LLR scale.
+
+    Parameters
+    ----------
+    p0, p1 : float
+        Tolerated rate and rate worth acting on, ``0 < p0 < p1 < 1``.
+    alpha, beta : float
+        Nominal risks the boundaries were derived for.
+    upper_llr, lower_llr : float
+        Boundaries in use, ``lower_llr < 0 < upper_llr`` for Wald's choice;
+        calibration may move them.
+    max_units : int or None
+        Optional cap N: an open cycle is decided at N units.
+    cut_llr : float
+        Decision at the cap: flag iff LLR(N, d) >= cut_llr.
+    """
+
+    p0: float
+    p1: float
+    alpha: float
+    beta: float
+    upper_llr: float
+    lower_llr: float
+    max_units: int | None = None
+    cut_llr: float = 0.0
+
+    @classmethod
+    def wald(cls, p0: float, p1: float, alpha: float, beta: float,
+             max_units: int | None = None, cut_llr: float = 0.0) -> "SprtPlan":
+        """Plan with Wald's boundaries a = ln((1-beta)/alpha), b = ln(beta/(1-alpha))."""
+        check_rates(p0, p1, alpha, beta, max_units, cut_llr)
+        return cls(p0=float(p0), p1=float(p1), alpha=float(alpha), beta=float(beta),
+                   upper_llr=math.log((1.0 - beta) / alpha),
+                   lower_llr=math.log(beta / (1.0 - alpha)),
+                   max_units=None if max_units is None else int(max_units),
+                   cut_llr=float(cut_llr))
+
+    def with_boundaries(self, upper_llr: float, lower_llr: float) -> "SprtPlan":
+        if not lower_llr < upper_llr:
+            raise ValueError("lower_llr must be below upper_llr")
+        return replace(self, upper_llr=float(upper_llr), lower_llr=float(lower_llr))
+
+    # -- the LLR per unit -------------------------------------------------
+    @property
+    def g1(self) -> float:
+        """LLR added by a nonconforming unit, ln(p1/p0)."""
+        return math.log(self.p1 / self.p0)
+
+    @property
+    def g2(self) -> float:
+        """LLR removed by a conforming unit, ln((1-p0)/(1-p1))."""
+        return math.log((1.0 - self.p0) / (1.0 - self.p1))
+
+    def llr(self, n, d):
+        """LLR after ``n`` units with ``d`` nonconforming, from the counts."""
+        g1, g2 = self.g1, self.g2
+        return d * (g1 + g2) - n * g2
+
+    # -- the same plan in the (n, d) plane ---------------------------------
+    @property
+    def h1(self) -> float:
+        """Intercept of the acceptance line d = -h1 + s n."""
+        return -self.lower_llr / (self.g1 + self.g2)
+
+    @property
+    def h2(self) -> float:
+        """Intercept of the rejection line d = h2 + s n."""
+        return self.upper_llr / (self.g1 + self.g2)
+
+    @property
+    def s(self) -> float:
+        """Common slope of both lines, g2 / (g1 + g2)."""
+        return self.g2 / (self.g1 + self.g2)
+
+    def acceptance_numbers(self, n):
+        """Largest d at which n units clear (LLR <= b), or -1 where none can.
+
+        Works on arrays of n; computed from the LLR of the counts so that it
+        agrees exactly with :meth:`decide`.
+        """
+        n = np.asarray(n, dtype=np.int64)
+        G, g2 = self.g1 + self.g2, self.g2
+        lim = self.lower_llr + BOUNDARY_TOL
+        d = np.floor((lim + n * g2) / G).astype(np.int64)
+        d = np.where(d * G - n * g2 > lim, d - 1, d)       # rounding up by the floor
+        d = np.where((d + 1) * G - n * g2 <= lim, d + 1, d)  # rounding down
+        return np.clip(d, -1, n)
+
+    def rejection_numbers(self, n):
+        """Smallest d at which n units flag (LLR >= a), or n + 1 where none can."""
+        n = np.asarray(n, dtype=np.int64)
+        G, g2 = self.g1 + self.g2, self.g2
+        lim = self.upper_llr - BOUNDARY_TOL
+        d = np.ceil((lim + n * g2) / G).astype(np.int64)
+        d = np.where(d * G - n * g2 < lim, d + 1, d)
+        d = np.where((d - 1) * G - n * g2 >= lim, d - 1, d)
+        return np.clip(d, 0, n + 1)
+
+    def cut_numbers(self, n):
+        """Smallest d with LLR(n, d) >= cut_llr (the flag rule at the cap)."""
+        n = np.asarray(n, dtype=np.int64)
+        G, g2 = self.g1 + self.g2, self.g2
+        lim = self.cut_llr - BOUNDARY_TOL
+        d = np.ceil((lim + n * g2) / G).astype(np.int64)
+        d = np.where(d * G - n * g2 < lim, d + 1, d)
+        d = np.where((d - 1) * G - n * g2 >= lim, d - 1, d)
+        return np.clip(d, 0, n + 1)
+
+    # -- the decision --------------------------------------------------------
+    def decide(self, n: int, d: int) -> str:
+        """State after ``n`` units with ``d`` nonconforming.
+
+        Returns ``"flagged"`` (LLR >= a), ``"cleared"`` (LLR <= b), or at the cap
+        the cut rule; otherwise ``"monitoring"``.
+        """
+        value = self.llr(n, d)
+        if value >= self.upper_llr - BOUNDARY_TOL:
+            return FLAGGED
+        if value <= self.lower_llr + BOUNDARY_TOL:
+            return CLEARED
+        if self.max_units is not None and n >= self.max_units:
+            return FLAGGED if value >= self.cut_llr - BOUNDARY_TOL else CLEARED
+        return MONITORING

@@ -1,0 +1,66 @@
+"""Independent reference computations for the tests.
+
+Nothing here imports the project's lattice engine: the LLR is recomputed from
+p0, p1 and the boundaries with the math module, and outcomes are found by
+enumerating every 0/1 sequence.
+"""
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+
+
+def llr_step(p0: float, p1: float) -> tuple[float, float]:
+    """(up, down): LLR change for a nonconforming and for a conforming unit (Wald 1947, ch. 5)."""
+    return math.log(p1 / p0), math.log((1 - p1) / (1 - p0))
+
+
+def enumerate_outcomes(p0, p1, upper, lower, horizon, cap=None, cut=0.0, tol=1e-9):
+    """All 0/1 sequences of length ``horizon``: (n at stop or 0, flagged?, d at stop).
+
+    Stopping is decided on a running sum of the per-unit LLR terms, a different
+    computation from the project's count formula.
+    """
+    up, down = llr_step(p0, p1)
+    outcomes = []
+    for seq in itertools.product((0, 1), repeat=horizon):
+        total, d = 0.0, 0
+        result = (0, False, None)
+        for i, x in enumerate(seq, start=1):
+            total += up if x else down
+            d += x
+            if total >= upper - tol:
+                result = (i, True, d)
+                break
+            if total <= lower + tol:
+                result = (i, False, d)
+                break
+            if cap is not None and i == cap:
+                result = (i, total >= cut - tol, d)
+                break
+        outcomes.append((seq, result))
+    return outcomes
+
+
+def brute_force_figures(p0, p1, upper, lower, horizon, rates, cap=None, cut=0.0):
+    """P(flag by horizon), P(clear by horizon), E[N; stopped by horizon] per rate."""
+    outcomes = enumerate_outcomes(p0, p1, upper, lower, horizon, cap, cut)
+    rates = np.asarray(rates, dtype=float)
+    flag = np.zeros(rates.size)
+    clear = np.zeros(rates.size)
+    asn = np.zeros(rates.size)
+    flag_by_n = np.zeros((rates.size, horizon + 1))
+    for seq, (n, flagged, _) in outcomes:
+        k = sum(seq)
+        prob = rates ** k * (1 - rates) ** (horizon - k)   # of the whole sequence
+        if n == 0:
+            continue
+        if flagged:
+            flag += prob
+            flag_by_n[:, n] += prob
+        else:
+            clear += prob
+        asn += prob * n
+    return flag, clear, asn, flag_by_n
