@@ -109,20 +109,132 @@ def _cmd_plans(args, parser) -> int:
     return 0
 
 
+def _settings(args):
+    """Settings from --config (or SEQAUDIT_CONFIG), the environment and the options given."""
+    from .plans import ConfigError
+    from .settings import load_settings
+
+    over = {k: getattr(args, k, None) for k in ("host", "port", "workers")}
+    if getattr(args, "db", None):
+        over["db_path"] = Path(args.db).resolve()
+    try:
+        return load_settings(getattr(args, "config", None), **over)
+    except ConfigError as exc:
+        raise SystemExit(f"seqaudit: error: {exc}")
+
+
+def _add_service_options(p, db_default=None) -> None:
+    p.add_argument("--db", default=db_default, help="SQLite file (default from the config)")
+    p.add_argument("--config", default=None, help="TOML configuration file")
+
+
+def _add_serve(sub) -> None:
+    p = sub.add_parser("serve", help="run the monitoring service (uvicorn)")
+    _add_service_options(p)
+    p.add_argument("--host", default=None)
+    p.add_argument("--port", type=_unit_count, default=None)
+    p.add_argument("--workers", type=_unit_count, default=None)
+    p.set_defaults(func=lambda a, _p: __import__("service.commands.serve", fromlist=["x"])
+                   .serve(_settings(a)))
+
+
+def _add_demo(sub) -> None:
+    p = sub.add_parser("demo", help="seed the demo scenario, serve it and feed simulated posts")
+    _add_service_options(p)
+    p.add_argument("--host", default=None)
+    p.add_argument("--port", type=_unit_count, default=None)
+    p.add_argument("--minutes", type=float, default=10.0, help="how long to feed (default 10)")
+    p.add_argument("--rate", type=float, default=5.0, help="posts per second (default 5)")
+
+    def run(a, _p):
+        from .commands.demo import run_demo
+        return run_demo(_settings(a), a.minutes, a.rate)
+
+    p.set_defaults(func=run)
+
+
+def _add_keys(sub) -> None:
+    p = sub.add_parser("keys", help="manage API keys")
+    ks = p.add_subparsers(dest="keys_command", parser_class=_Parser, metavar="ACTION")
+    ks.required = True
+    add = ks.add_parser("add", help="create a key and print it (only the key, on stdout)")
+    _add_service_options(add)
+    add.add_argument("--role", required=True, choices=("field", "analyst", "admin"))
+    add.add_argument("--label", required=True)
+    lst = ks.add_parser("list", help="list keys (never the keys themselves)")
+    _add_service_options(lst)
+    rev = ks.add_parser("revoke", help="revoke a key by id")
+    _add_service_options(rev)
+    rev.add_argument("key_id", type=int)
+    from .commands import keys as k
+    add.set_defaults(func=lambda a, _p: k.add(_settings(a).db_path, a.role, a.label))
+    lst.set_defaults(func=lambda a, _p: k.list_keys(_settings(a).db_path))
+    rev.set_defaults(func=lambda a, _p: k.revoke(_settings(a).db_path, a.key_id))
+
+
+def _add_import(sub, noun: str) -> None:
+    p = sub.add_parser(noun, help=f"{noun} register tools")
+    acts = p.add_subparsers(dest=f"{noun}_command", parser_class=_Parser, metavar="ACTION")
+    acts.required = True
+    imp = acts.add_parser("import", help=f"load {noun} from a CSV file")
+    imp.add_argument("file")
+    _add_service_options(imp)
+    imp.add_argument("--errors", default=None, help="write rejected rows to this CSV file")
+
+    def run(a, parser):
+        from .commands import imports
+        from .operations import Monitor, PlanBook
+        from .store import Store
+
+        settings = _settings(a)
+        store = Store(settings.db_path)
+        store.migrate()
+        monitor = Monitor(store=store, plans=PlanBook(settings.plans),
+                          max_batch=max(settings.max_batch, imports.BATCH))
+        fn = imports.import_facilities if noun == "facilities" else imports.import_records
+        try:
+            return fn(monitor, a.file, a.errors)
+        except (OSError, ValueError) as exc:
+            parser.error(str(exc))
+
+    imp.set_defaults(func=run)
+
+
 def build_parser() -> _Parser:
     parser = _Parser(prog="seqaudit", description="Sequential audit monitor (SPRT).")
     sub = parser.add_subparsers(dest="command", parser_class=_Parser, metavar="COMMAND")
     sub.required = True
     _add_plan(sub)
     _add_plans(sub)
+    _add_serve(sub)
+    _add_demo(sub)
+    _add_keys(sub)
+    _add_import(sub, "facilities")
+    _add_import(sub, "records")
     return parser
 
 
+def _leaf_parser(parser: argparse.ArgumentParser, argv: list[str]) -> argparse.ArgumentParser:
+    """The (sub)parser that owns the chosen command, so errors carry its name."""
+    current = parser
+    for word in argv:
+        actions = [a for a in current._actions if isinstance(a, argparse._SubParsersAction)]
+        if not actions or word not in actions[0].choices:
+            if actions:
+                continue
+            break
+        current = actions[0].choices[word]
+    return current
+
+
 def main(argv: list[str] | None = None) -> int:
+    argv = sys.argv[1:] if argv is None else argv
     parser = build_parser()
     args = parser.parse_args(argv)
-    sub_parser = parser._subparsers._group_actions[0].choices[args.command]
-    return args.func(args, sub_parser)
+    try:
+        return args.func(args, _leaf_parser(parser, argv))
+    except BrokenPipeError:  # e.g. piped into head
+        return 0
 
 
 if __name__ == "__main__":

@@ -1,0 +1,50 @@
+"""Shared dependencies: the Monitor of this app, and key-based roles."""
+from __future__ import annotations
+
+import hmac
+
+from fastapi import Depends, Request
+
+from ..operations import Monitor
+from ..store import hash_key
+from .problems import AuthProblem
+
+RANK = {"field": 0, "analyst": 1, "admin": 2}
+
+
+def monitor(request: Request) -> Monitor:
+    return request.app.state.monitor
+
+
+def caller(request: Request) -> tuple[str, str]:
+    """(label, role) of the key in ``Authorization: Bearer KEY``; 401 otherwise."""
+    header = request.headers.get("authorization")
+    if not header:
+        raise AuthProblem(401, "send an API key as 'Authorization: Bearer KEY'")
+    scheme, _, key = header.partition(" ")
+    if scheme.lower() != "bearer" or not key.strip():
+        raise AuthProblem(401, "the Authorization header must be 'Bearer KEY'")
+    digest = hash_key(key.strip())
+    row = request.app.state.monitor.store.key_by_hash(digest)
+    if row is None or not hmac.compare_digest(row["key_hash"], digest):
+        raise AuthProblem(401, "this API key is not known")
+    if row["revoked_at"] is not None:
+        raise AuthProblem(401, f"this API key was revoked at {row['revoked_at']}")
+    return row["label"], row["role"]
+
+
+def require(minimum: str):
+    """Dependency: the caller's role ranks at least ``minimum``; 403 otherwise."""
+
+    def check(actor: tuple[str, str] = Depends(caller)) -> tuple[str, str]:
+        if RANK[actor[1]] < RANK[minimum]:
+            raise AuthProblem(403, f"this needs a key with role {minimum} or higher; "
+                                   f"this key's role is {actor[1]}")
+        return actor
+
+    return check
+
+
+field_or_above = require("field")
+analyst = require("analyst")
+admin = require("admin")

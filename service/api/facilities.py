@@ -1,0 +1,57 @@
+from typing import Literal
+
+from fastapi import APIRouter, Depends, Query, Response
+
+from ..operations import Monitor
+from ..schemas import FacilityCreate, FacilityPage, FacilityPublic, ReasonCreate, RecordList, \
+    Status
+from .deps import admin, analyst, monitor
+
+router = APIRouter(prefix="/v1/facilities", tags=["facilities"])
+
+Sort = Literal["facility_id", "name", "units", "last_record_at", "llr", "llr_position"]
+
+
+@router.post("", status_code=201, response_model=FacilityPublic,
+             summary="Register a facility under a configured plan (admin)")
+def register(body: FacilityCreate, response: Response, actor=Depends(admin),
+             m: Monitor = Depends(monitor)):
+    out = m.register_facility(body, actor)
+    response.headers["Location"] = f"/v1/facilities/{body.facility_id}"
+    return out
+
+
+@router.get("", response_model=FacilityPage, summary="List facilities (analyst)")
+def list_facilities(status: Status | None = None, plan: str | None = None,
+                    q: str | None = Query(None, max_length=100, description="id or name contains"),
+                    sort: Sort = "facility_id", descending: bool = False,
+                    limit: int = Query(100, ge=1, le=1000), offset: int = Query(0, ge=0),
+                    actor=Depends(analyst), m: Monitor = Depends(monitor)):
+    return m.facilities(status=status, plan=plan, search=q, sort=sort, descending=descending,
+                        limit=limit, offset=offset)
+
+
+@router.get("/{facility_id}", response_model=FacilityPublic,
+            summary="A facility's state and cycle history (analyst)")
+def get_facility(facility_id: str, actor=Depends(analyst), m: Monitor = Depends(monitor)):
+    return m.facility(facility_id)
+
+
+@router.get("/{facility_id}/records", response_model=RecordList,
+            summary="Records of a cycle in evidence order, with the LLR after each (analyst)")
+def records(facility_id: str, cycle: int | None = Query(None, ge=1), actor=Depends(analyst),
+            m: Monitor = Depends(monitor)):
+    return m.records(facility_id, cycle)
+
+
+@router.post("/{facility_id}/cycles", status_code=201, response_model=FacilityPublic,
+             summary="Open the next monitoring cycle when none is open (analyst)")
+def open_cycle(facility_id: str, actor=Depends(analyst), m: Monitor = Depends(monitor)):
+    return m.open_cycle(facility_id, actor)
+
+
+@router.post("/{facility_id}/close", response_model=FacilityPublic,
+             summary="Close the open cycle without a decision (analyst)")
+def close_cycle(facility_id: str, body: ReasonCreate, actor=Depends(analyst),
+                m: Monitor = Depends(monitor)):
+    return m.close_cycle(facility_id, body.reason, actor)

@@ -1,0 +1,24 @@
+from fastapi import APIRouter, Depends
+
+from ..operations import Monitor
+from ..schemas import KeyCreate, KeyCreated, KeyPublic
+from .deps import admin, monitor
+
+router = APIRouter(prefix="/v1/keys", tags=["keys"])
+
+
+@router.post("", status_code=201, response_model=KeyCreated,
+             summary="Create an API key; the key is shown only in this answer (admin)")
+def create_key(body: KeyCreate, actor=Depends(admin), m: Monitor = Depends(monitor)):
+    row, key = m.store.add_key(body.role, body.label, m.clock(), actor)
+    return {**row, "key": key}
+
+
+@router.get("", response_model=list[KeyPublic], summary="API keys, without the keys (admin)")
+def list_keys(actor=Depends(admin), m: Monitor = Depends(monitor)):
+    return m.store.keys()
+
+
+@router.post("/{key_id}/revoke", response_model=KeyPublic, summary="Revoke an API key (admin)")
+def revoke_key(key_id: int, actor=Depends(admin), m: Monitor = Depends(monitor)):
+    return m.store.revoke_key(key_id, m.clock(), actor)

@@ -1,0 +1,17 @@
+from fastapi import APIRouter, Depends
+
+from ..operations import Monitor
+from ..schemas import PlanPublic
+from .deps import analyst, monitor
+
+router = APIRouter(prefix="/v1/plans", tags=["plans"])
+
+
+@router.get("", response_model=list[PlanPublic], summary="Configured plans with exact figures")
+def list_plans(actor=Depends(analyst), m: Monitor = Depends(monitor)):
+    return [m.plans.public(name) for name in sorted(m.plans.specs)]
+
+
+@router.get("/{name}", response_model=PlanPublic, summary="One configured plan")
+def get_plan(name: str, actor=Depends(analyst), m: Monitor = Depends(monitor)):
+    return m.plans.public(name)

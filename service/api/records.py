@@ -1,0 +1,47 @@
+import json
+
+from fastapi import APIRouter, Depends, Request
+from fastapi.responses import JSONResponse
+
+from ..errors import Invalid, TooLarge
+from ..operations import Monitor
+from ..schemas import IngestReport, IngestResult, ReasonCreate, RecordBatchCreate, RecordCreate, \
+    VoidResult
+from .deps import RANK, analyst, field_or_above, monitor
+
+router = APIRouter(prefix="/v1/records", tags=["records"])
+
+_BODY = {"requestBody": {"required": True, "content": {"application/json": {"schema": {
+    "oneOf": [{"$ref": "#/components/schemas/RecordCreate"},
+              {"$ref": "#/components/schemas/RecordBatchCreate"}]}}}}}
+
+
+@router.post("", openapi_extra=_BODY, summary="Post one record or a batch of up to 1000 (field+)",
+             responses={201: {"model": IngestResult, "description": "one record accepted"},
+                        200: {"model": IngestReport | IngestResult,
+                              "description": "a duplicate of a stored record, or a batch report"}})
+async def post_records(request: Request, actor=Depends(field_or_above),
+                       m: Monitor = Depends(monitor)):
+    raw = await request.body()
+    limit = request.app.state.settings.max_body_bytes
+    if len(raw) > limit:
+        raise TooLarge(f"the body is {len(raw)} bytes; at most {limit} are accepted")
+    try:
+        payload = json.loads(raw)
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise Invalid(f"the body is not valid JSON: {exc}", field="body") from None
+    from starlette.concurrency import run_in_threadpool
+    status, body = await run_in_threadpool(m.post_records, payload, actor,
+                                           RANK[actor[1]] >= RANK["analyst"])
+    return JSONResponse(body, status_code=status)
+
+
+@router.post("/{record_id:path}/void", response_model=VoidResult,
+             summary="Void a record with a reason and replay its cycle (analyst)")
+def void(record_id: str, body: ReasonCreate, actor=Depends(analyst),
+         m: Monitor = Depends(monitor)):
+    return m.void_record(record_id, body.reason, actor)
+
+
+# Registered so that the OpenAPI document carries both body schemas.
+_SCHEMAS = (RecordCreate, RecordBatchCreate)

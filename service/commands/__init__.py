@@ -1,0 +1,1 @@
+"""Bodies of the `seqaudit` subcommands; service/cli.py only parses arguments."""

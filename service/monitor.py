@@ -1,0 +1,109 @@
+"""The per-facility update: a pure function (state, record) -> (state, decision).
+
+A monitoring cycle accumulates units and nonconforming units from the records
+in receipt order; its LLR is always recomputed from those counts with the
+plan snapshot of the cycle. The first record after which the plan decides
+freezes the cycle: later records are kept as post-decision records and never
+change the decision. Replaying a cycle is a fold of :func:`apply_record`.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+from .stats import CLEARED, FLAGGED, MONITORING, SprtPlan
+
+CLOSED = "closed"
+STATUSES = (MONITORING, FLAGGED, CLEARED, CLOSED)
+DECIDED = (FLAGGED, CLEARED)
+
+
+@dataclass(frozen=True)
+class CycleState:
+    """What a cycle knows after its evidence so far."""
+
+    status: str = MONITORING
+    units: int = 0
+    nonconforming: int = 0
+    decided_seq: int | None = None            # receipt number of the deciding record
+    decided_after_units: int | None = None
+    decided_at: str | None = None             # receipt time of the deciding record
+    at_cap: bool = False                      # decided by the cap's cut rule
+
+    @property
+    def is_open(self) -> bool:
+        return self.status == MONITORING
+
+
+@dataclass(frozen=True)
+class Evidence:
+    """The part of a record the test uses."""
+
+    seq: int
+    units: int
+    nonconforming: int
+    received_at: str
+
+
+@dataclass(frozen=True)
+class Decision:
+    """A cycle became decided by this record."""
+
+    status: str           # flagged or cleared
+    at_cap: bool
+    after_units: int
+
+
+def apply_record(plan: SprtPlan, state: CycleState, rec: Evidence) -> tuple[CycleState, Decision | None, bool]:
+    """Add one record to a cycle.
+
+    Returns
+    -------
+    (state, decision, counted)
+        ``counted`` is False for a record that arrives after the cycle stopped
+        (decided or closed): it is kept but is not evidence.
+    """
+    if not state.is_open:
+        return state, None, False
+    units = state.units + rec.units
+    bad = state.nonconforming + rec.nonconforming
+    status = plan.decide(units, bad)
+    if status == MONITORING:
+        return replace(state, units=units, nonconforming=bad), None, True
+    at_cap = (plan.max_units is not None and units >= plan.max_units
+              and plan.llr(units, bad) < plan.upper_llr - 1e-9
+              and plan.llr(units, bad) > plan.lower_llr + 1e-9)
+    new = CycleState(status=status, units=units, nonconforming=bad, decided_seq=rec.seq,
+                     decided_after_units=units, decided_at=rec.received_at, at_cap=at_cap)
+    return new, Decision(status=status, at_cap=at_cap, after_units=units), True
+
+
+def replay(plan: SprtPlan, records, stop_seq: int | None = None) -> tuple[CycleState, list[bool]]:
+    """Fold :func:`apply_record` over records in receipt order.
+
+    ``stop_seq``: the cycle was closed by hand after this receipt number, so
+    later records are not evidence. Returns the state and, per record, whether
+    it counted as evidence.
+    """
+    state = CycleState()
+    counted = []
+    for rec in records:
+        if stop_seq is not None and rec.seq > stop_seq:
+            counted.append(False)
+            continue
+        state, _, used = apply_record(plan, state, rec)
+        counted.append(used)
+    return state, counted
+
+
+def llr_path(plan: SprtPlan, records, counted) -> list[float | None]:
+    """LLR after each record (None for records that were not evidence)."""
+    units = bad = 0
+    out = []
+    for rec, used in zip(records, counted):
+        if used:
+            units += rec.units
+            bad += rec.nonconforming
+            out.append(float(plan.llr(units, bad)))
+        else:
+            out.append(None)
+    return out

@@ -1,0 +1,295 @@
+"""Application functions shared by the API, the CLI and the dashboard.
+
+They validate, call the store (which owns SQLite) and shape what callers see.
+No HTTP here: errors are :mod:`service.errors` exceptions.
+"""
+from __future__ import annotations
+
+import json
+import threading
+from dataclasses import dataclass
+from typing import Any, Callable
+
+from pydantic import ValidationError
+
+from .clock import format_time, parse_rfc3339, utc_now
+from .errors import Conflict, Invalid, NotFound, TooLarge
+from .plans import PlanSpec
+from .schemas import FacilityCreate, RecordCreate
+from .stats import SprtPlan, design
+from .stats.calibrate import calibrate
+from .store import RecordIn, Store
+
+Actor = tuple[str, str]   # (key label, role)
+
+
+def validation_errors(exc: ValidationError, prefix: str = "") -> list[dict]:
+    """pydantic errors as [{field, message}] with dotted field paths."""
+    out = []
+    for err in exc.errors(include_url=False):
+        loc = ".".join(str(p) for p in err["loc"] if p != "__root__")
+        msg = err["msg"]
+        if msg.startswith("Value error, "):
+            msg = msg[len("Value error, "):]
+        if err["type"] == "extra_forbidden":
+            msg = "unknown field"
+        out.append({"field": (prefix + loc) if loc else prefix.rstrip(".") or "body",
+                    "message": msg})
+    return out
+
+
+class PlanBook:
+    """The configured plans, their boundaries (calibrated where asked) and exact figures."""
+
+    def __init__(self, specs: dict[str, PlanSpec]):
+        self.specs = dict(specs)
+        self._lock = threading.Lock()
+        self._plans: dict[str, SprtPlan] = {}
+        self._designs: dict[str, Any] = {}
+
+    def spec(self, name: str) -> PlanSpec:
+        if name not in self.specs:
+            raise NotFound(f"no plan {name!r}; configured plans: {', '.join(sorted(self.specs))}")
+        return self.specs[name]
+
+    def plan(self, name: str) -> SprtPlan:
+        spec = self.spec(name)
+        with self._lock:
+            if name not in self._plans:
+                base = SprtPlan.wald(spec.p0, spec.p1, spec.alpha, spec.beta,
+                                     max_units=spec.max_units, cut_llr=spec.cut_llr)
+                self._plans[name] = calibrate(base).plan if spec.calibrate else base
+            return self._plans[name]
+
+    def design(self, name: str):
+        spec = self.spec(name)
+        with self._lock:
+            if name not in self._designs:
+                self._designs[name] = design(**spec.design_args())
+            return self._designs[name]
+
+    def snapshot(self, name: str) -> dict:
+        """What a new cycle stores about its plan, so editing the config never changes it."""
+        spec, plan = self.spec(name), self.plan(name)
+        return {"name": name, "p0": plan.p0, "p1": plan.p1, "alpha": plan.alpha,
+                "beta": plan.beta, "max_units": plan.max_units, "cut_llr": plan.cut_llr,
+                "calibrate": spec.calibrate, "upper_llr": plan.upper_llr,
+                "lower_llr": plan.lower_llr}
+
+    def public(self, name: str) -> dict:
+        spec = self.spec(name)
+        d = self.design(name).to_dict()
+        return {"name": name, "title": spec.title, "p0": spec.p0, "p1": spec.p1,
+                "alpha": spec.alpha, "beta": spec.beta, "max_units": spec.max_units,
+                "cut_llr": spec.cut_llr, "calibrate": spec.calibrate,
+                "boundaries": d["boundaries"], "exact": d["exact"], "wald": d["wald"],
+                "fixed_sample": d["fixed_sample"]}
+
+
+def cycle_public(row: dict) -> dict:
+    snap = json.loads(row["plan_json"])
+    return {"cycle": row["cycle"], "plan": row["plan_name"], "status": row["status"],
+            "units": row["units"], "nonconforming": row["nonconforming"], "llr": row["llr"],
+            "upper_llr": snap["upper_llr"], "lower_llr": snap["lower_llr"],
+            "opened_at": row["opened_at"], "decided_at": row["decided_at"],
+            "decided_after_units": row["decided_after_units"],
+            "decided_at_cap": bool(row["at_cap"]), "closed_at": row["closed_at"],
+            "closed_reason": row["closed_reason"], "last_record_at": row["last_record_at"],
+            "records": row["record_count"], "plan_snapshot": snap}
+
+
+def facility_public(row: dict, cycles: list[dict] | None = None) -> dict:
+    snap = json.loads(row["plan_json"])
+    out = {"facility_id": row["facility_id"], "name": row["name"], "plan": row["plan"],
+           "registered_at": row["created_at"], "status": row["status"], "cycle": row["cycle"],
+           "units": row["units"], "nonconforming": row["nonconforming"], "llr": row["llr"],
+           "upper_llr": snap["upper_llr"], "lower_llr": snap["lower_llr"],
+           "decided_at": row["decided_at"], "decided_after_units": row["decided_after_units"],
+           "last_record_at": row["last_record_at"]}
+    if cycles is not None:
+        out["cycles"] = [cycle_public(c) for c in cycles]
+    return out
+
+
+def record_public(row: dict) -> dict:
+    return {"seq": row["seq"], "record_id": row["record_id"], "facility_id": row["facility_id"],
+            "cycle": row["cycle"], "observed_at": row["observed_at"],
+            "received_at": row["received_at"], "units": row["units"],
+            "nonconforming": row["nonconforming"], "unit_ref": row["unit_ref"],
+            "inspector": row["inspector"], "note": row["note"],
+            "evidence": bool(row["counted"]) and not row["void"],
+            "llr_after": row.get("llr_after"), "void": bool(row["void"]),
+            "voided_at": row["voided_at"], "voided_by": row["voided_by"],
+            "void_reason": row["void_reason"]}
+
+
+@dataclass
+class Monitor:
+    """The monitoring service's operations over one store."""
+
+    store: Store
+    plans: PlanBook
+    clock: Callable[[], str] = utc_now
+    max_batch: int = 1000
+    future_tolerance_s: float = 86_400.0
+
+    # -- facilities ------------------------------------------------------------
+    def register_facility(self, body: FacilityCreate, actor: Actor) -> dict:
+        if body.plan not in self.plans.specs:
+            raise Invalid(f"unknown plan {body.plan!r}; configured plans: "
+                          f"{', '.join(sorted(self.plans.specs))}", field="plan")
+        self.store.add_facility(body.facility_id, body.name, body.plan,
+                                self.plans.snapshot(body.plan), self.clock(), actor)
+        return self.facility(body.facility_id)
+
+    def facility(self, facility_id: str, with_cycles: bool = True) -> dict:
+        row = self.store.facility(facility_id)
+        return facility_public(row, self.store.cycles(facility_id) if with_cycles else None)
+
+    def facilities(self, **filters) -> dict:
+        rows, total = self.store.facilities(**filters)
+        return {"items": [facility_public(r) for r in rows], "total": total,
+                "limit": filters.get("limit", 100), "offset": filters.get("offset", 0)}
+
+    def open_cycle(self, facility_id: str, actor: Actor) -> dict:
+        plan_name = self.store.facility(facility_id)["plan"]
+        self.store.open_cycle(facility_id, self.plans.snapshot(plan_name), self.clock(), actor)
+        return self.facility(facility_id)
+
+    def close_cycle(self, facility_id: str, reason: str, actor: Actor) -> dict:
+        self.store.close_cycle(facility_id, reason, self.clock(), actor)
+        return self.facility(facility_id)
+
+    # -- records -----------------------------------------------------------------
+    def _record_in(self, rec: RecordCreate, now_dt) -> RecordIn:
+        moment = parse_rfc3339(rec.observed_at)
+        if (moment - now_dt).total_seconds() > self.future_tolerance_s:
+            raise Invalid(f"observed_at {rec.observed_at} lies in the future", field="observed_at")
+        return RecordIn(record_id=rec.record_id, facility_id=rec.facility_id,
+                        observed_at=rec.observed_at, observed_utc=format_time(moment),
+                        units=rec.units, nonconforming=rec.nonconforming, unit_ref=rec.unit_ref,
+                        inspector=rec.inspector, note=rec.note)
+
+    def post_records(self, payload: Any, actor: Actor, with_state: bool) -> tuple[int, dict]:
+        """Ingest one record or ``{"records": [...]}``; returns (HTTP status, body)."""
+        batch = isinstance(payload, dict) and "records" in payload
+        if batch:
+            extra = set(payload) - {"records"}
+            if extra:
+                raise Invalid(f"unknown field(s) beside 'records': {', '.join(sorted(extra))}",
+                              field=sorted(extra)[0])
+            items = payload["records"]
+            if not isinstance(items, list):
+                raise Invalid("records must be a list of records", field="records")
+            if not items:
+                raise Invalid("records must hold at least one record", field="records")
+            if len(items) > self.max_batch:
+                raise TooLarge(f"a batch holds at most {self.max_batch} records, got {len(items)}; "
+                               "split it into several requests")
+        else:
+            if not isinstance(payload, dict):
+                raise Invalid("the body must be a record object or {\"records\": [...]}",
+                              field="body")
+            items = [payload]
+        now = self.clock()
+        now_dt = parse_rfc3339(now)
+        results: list[dict | None] = [None] * len(items)
+        valid: list[RecordIn] = []
+        where: list[int] = []
+        for i, raw in enumerate(items):
+            prefix = f"records.{i}." if batch else ""
+            try:
+                if not isinstance(raw, dict):
+                    raise Invalid("a record must be a JSON object", field=prefix.rstrip(".") or "body")
+                valid.append(self._record_in(RecordCreate.model_validate(raw), now_dt))
+                where.append(i)
+            except ValidationError as exc:
+                results[i] = self._invalid(i, raw, validation_errors(exc, prefix))
+            except Invalid as exc:
+                field = exc.extra.get("field", "body")
+                if not field.startswith(prefix):
+                    field = prefix + field
+                results[i] = self._invalid(i, raw, [{"field": field, "message": exc.detail}])
+        rejected_before = len(items) - len(valid)
+        if valid:
+            outcomes = self.store.ingest(valid, actor[0], now, rejected_before=rejected_before)
+        else:
+            self.store.bump("records_rejected", rejected_before)
+            outcomes = []
+        states: dict[str, dict] = {}
+        for pos, out in zip(where, outcomes):
+            code = {"accepted": 201, "duplicate": 200, "conflict": 409, "invalid": 422}[out.status]
+            result = {"index": pos, "record_id": out.record_id, "status": out.status, "code": code,
+                      "seq": out.seq if out.status != "invalid" else None}
+            if out.detail:
+                field = (f"records.{pos}." if batch else "") + (out.field or "body")
+                result["errors"] = [{"field": field, "message": out.detail}]
+            if with_state and out.status in ("accepted", "duplicate") and out.facility_id:
+                if out.facility_id not in states:
+                    states[out.facility_id] = self.facility(out.facility_id, with_cycles=False)
+                result["facility"] = states[out.facility_id]
+            results[pos] = result
+        if not batch:
+            only = results[0]
+            if only["status"] in ("invalid", "conflict"):
+                cls = Invalid if only["status"] == "invalid" else Conflict
+                raise cls(only["errors"][0]["message"], errors=only["errors"],
+                          record_id=only["record_id"])
+            return only["code"], only
+        counts = {s: sum(1 for r in results if r["status"] == s)
+                  for s in ("accepted", "duplicate")}
+        return 200, {"accepted": counts["accepted"], "duplicate": counts["duplicate"],
+                     "rejected": len(results) - counts["accepted"] - counts["duplicate"],
+                     "results": results}
+
+    @staticmethod
+    def _invalid(index: int, raw: Any, errors: list[dict]) -> dict:
+        rid = raw.get("record_id") if isinstance(raw, dict) else None
+        return {"index": index, "record_id": rid if isinstance(rid, str) else None,
+                "status": "invalid", "code": 422, "seq": None, "errors": errors}
+
+    def records(self, facility_id: str, cycle: int | None) -> dict:
+        number = cycle if cycle is not None else self.store.facility(facility_id)["current_cycle"]
+        rows = self.store.records(facility_id, number)
+        return {"facility_id": facility_id, "cycle": number,
+                "items": [record_public(r) for r in rows]}
+
+    def void_record(self, record_id: str, reason: str, actor: Actor) -> dict:
+        out = self.store.void_record(record_id, reason, self.clock(), actor)
+        rec = out["record"]
+        listed = {r["seq"]: r for r in self.store.records(rec["facility_id"], rec["cycle"])}
+        return {"record": record_public(listed[rec["seq"]]), "decision_revised": out["revised"],
+                "facility": self.facility(rec["facility_id"], with_cycles=False),
+                "alert_ids": out["alert_ids"]}
+
+    # -- alerts, actions, metrics ------------------------------------------------------
+    def alerts(self, **filters) -> dict:
+        rows, total = self.store.alerts(**filters)
+        return {"items": rows, "total": total, "limit": filters.get("limit", 100),
+                "offset": filters.get("offset", 0)}
+
+    def ack_alert(self, alert_id: int, note: str | None, actor: Actor) -> dict:
+        return self.store.ack_alert(alert_id, note, self.clock(), actor)
+
+    def actions(self, **filters) -> dict:
+        rows, total = self.store.actions(**filters)
+        return {"items": rows, "total": total, "limit": filters.get("limit", 100),
+                "offset": filters.get("offset", 0)}
+
+    def metrics_text(self) -> str:
+        """Prometheus text exposition format 0.0.4."""
+        counters = self.store.counters()
+        lines = ["# HELP seqaudit_records_total Inspection records received, by outcome.",
+                 "# TYPE seqaudit_records_total counter"]
+        for outcome in ("accepted", "duplicate", "rejected"):
+            lines.append(f'seqaudit_records_total{{outcome="{outcome}"}} '
+                         f'{counters.get("records_" + outcome, 0)}')
+        by_status = self.store.status_counts()
+        lines += ["# HELP seqaudit_facilities Facilities by the status of their current cycle.",
+                  "# TYPE seqaudit_facilities gauge"]
+        for status in ("monitoring", "flagged", "cleared", "closed"):
+            lines.append(f'seqaudit_facilities{{status="{status}"}} {by_status.get(status, 0)}')
+        lines += ["# HELP seqaudit_alerts_open Alerts not yet acknowledged.",
+                  "# TYPE seqaudit_alerts_open gauge",
+                  f"seqaudit_alerts_open {self.store.open_alert_count()}"]
+        return "\n".join(lines) + "\n"

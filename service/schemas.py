@@ -1,0 +1,247 @@
+"""Request and response schemas (pydantic), one per purpose: *Create for what a
+client sends, *Public for what the service shows."""
+from __future__ import annotations
+
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, StrictInt, StrictStr, field_validator, \
+    model_validator
+
+from .clock import parse_rfc3339
+
+Status = Literal["monitoring", "flagged", "cleared", "closed"]
+AlertKind = Literal["flagged", "cleared", "decision_revised", "cap_reached"]
+Role = Literal["field", "analyst", "admin"]
+
+
+def _printable(value: str, name: str) -> str:
+    if any(ord(ch) < 32 or ord(ch) == 127 for ch in value):
+        raise ValueError(f"{name} must not contain control characters")
+    return value
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", str_strip_whitespace=False)
+
+
+class RecordCreate(_Strict):
+    """One re-check of one unit (or a few units) of a facility."""
+
+    record_id: StrictStr = Field(min_length=1, max_length=64,
+                                 description="client-made idempotency key")
+    facility_id: StrictStr = Field(min_length=1, max_length=64)
+    observed_at: StrictStr = Field(description="RFC 3339 date-time with offset")
+    units: StrictInt = Field(default=1, ge=1, le=100_000)
+    nonconforming: StrictInt = Field(ge=0, le=100_000)
+    unit_ref: StrictStr | None = Field(default=None, max_length=200)
+    inspector: StrictStr | None = Field(default=None, max_length=200)
+    note: StrictStr | None = Field(default=None, max_length=2000)
+
+    @field_validator("record_id", "facility_id", "unit_ref", "inspector")
+    @classmethod
+    def _no_controls(cls, value, info):
+        return value if value is None else _printable(value, info.field_name)
+
+    @field_validator("observed_at")
+    @classmethod
+    def _time(cls, value):
+        parse_rfc3339(value)
+        return value
+
+    @model_validator(mode="after")
+    def _counts(self):
+        if self.nonconforming > self.units:
+            raise ValueError(f"nonconforming ({self.nonconforming}) cannot exceed units "
+                             f"({self.units})")
+        return self
+
+
+class RecordBatchCreate(_Strict):
+    records: list[RecordCreate] = Field(min_length=1, max_length=1000)
+
+
+class FacilityCreate(_Strict):
+    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=r"^[^/\\]+$")
+    name: StrictStr = Field(min_length=1, max_length=200)
+    plan: StrictStr = Field(min_length=1, max_length=64)
+
+    @field_validator("facility_id", "name")
+    @classmethod
+    def _no_controls(cls, value, info):
+        return _printable(value, info.field_name)
+
+
+class ReasonCreate(_Strict):
+    reason: StrictStr = Field(min_length=1, max_length=2000)
+
+
+class AckCreate(_Strict):
+    note: StrictStr | None = Field(default=None, max_length=2000)
+
+
+class KeyCreate(_Strict):
+    role: Role
+    label: StrictStr = Field(min_length=1, max_length=200)
+
+
+class CyclePublic(BaseModel):
+    cycle: int
+    plan: str
+    status: Status
+    units: int
+    nonconforming: int
+    llr: float
+    upper_llr: float
+    lower_llr: float
+    opened_at: str
+    decided_at: str | None
+    decided_after_units: int | None
+    decided_at_cap: bool
+    closed_at: str | None
+    closed_reason: str | None
+    last_record_at: str | None
+    records: int
+    plan_snapshot: dict[str, Any]
+
+
+class FacilityPublic(BaseModel):
+    facility_id: str
+    name: str
+    plan: str
+    registered_at: str
+    status: Status
+    cycle: int
+    units: int
+    nonconforming: int
+    llr: float
+    upper_llr: float
+    lower_llr: float
+    decided_at: str | None
+    decided_after_units: int | None
+    last_record_at: str | None
+    cycles: list[CyclePublic] | None = None
+
+
+class FacilityPage(BaseModel):
+    items: list[FacilityPublic]
+    total: int
+    limit: int
+    offset: int
+
+
+class RecordPublic(BaseModel):
+    seq: int
+    record_id: str
+    facility_id: str
+    cycle: int
+    observed_at: str
+    received_at: str
+    units: int
+    nonconforming: int
+    unit_ref: str | None
+    inspector: str | None
+    note: str | None
+    evidence: bool
+    llr_after: float | None
+    void: bool
+    voided_at: str | None
+    voided_by: str | None
+    void_reason: str | None
+
+
+class RecordList(BaseModel):
+    facility_id: str
+    cycle: int
+    items: list[RecordPublic]
+
+
+class IngestResult(BaseModel):
+    index: int
+    record_id: str | None
+    status: Literal["accepted", "duplicate", "conflict", "invalid"]
+    code: int
+    seq: int | None = None
+    errors: list[dict[str, Any]] | None = None
+    facility: FacilityPublic | None = None
+
+
+class IngestReport(BaseModel):
+    accepted: int
+    duplicate: int
+    rejected: int
+    results: list[IngestResult]
+
+
+class AlertPublic(BaseModel):
+    alert_id: int
+    kind: AlertKind
+    facility_id: str
+    cycle: int | None
+    created_at: str
+    state: Literal["open", "acknowledged"]
+    detail: dict[str, Any]
+    acked_at: str | None
+    acked_by: str | None
+    ack_note: str | None
+
+
+class AlertPage(BaseModel):
+    items: list[AlertPublic]
+    total: int
+    limit: int
+    offset: int
+
+
+class ActionPublic(BaseModel):
+    id: int
+    at: str
+    key_label: str | None
+    role: str | None
+    action: str
+    facility_id: str | None
+    cycle: int | None
+    target: str | None
+    detail: dict[str, Any]
+
+
+class ActionPage(BaseModel):
+    items: list[ActionPublic]
+    total: int
+    limit: int
+    offset: int
+
+
+class KeyPublic(BaseModel):
+    id: int
+    label: str
+    role: Role
+    prefix: str | None
+    created_at: str
+    revoked_at: str | None
+
+
+class KeyCreated(KeyPublic):
+    key: str = Field(description="shown once; store it now")
+
+
+class VoidResult(BaseModel):
+    record: RecordPublic
+    decision_revised: bool
+    facility: FacilityPublic
+    alert_ids: list[int]
+
+
+class PlanPublic(BaseModel):
+    name: str
+    title: str | None
+    p0: float
+    p1: float
+    alpha: float
+    beta: float
+    max_units: int | None
+    cut_llr: float
+    calibrate: bool
+    boundaries: dict[str, float]
+    exact: dict[str, Any]
+    wald: dict[str, float]
+    fixed_sample: dict[str, Any]

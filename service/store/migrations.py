@@ -1,0 +1,67 @@
+"""Schema migrations, applied in order inside one write transaction.
+
+Each migration is a function of a sqlite-utils Database; the number of applied
+migrations is kept in `schema_version`. Never edit a released migration: add
+a new one.
+"""
+from __future__ import annotations
+
+import sqlite_utils
+
+
+def _v1(db: sqlite_utils.Database) -> None:
+    db["keys"].create({"id": int, "label": str, "role": str, "key_hash": str, "prefix": str,
+                       "created_at": str, "revoked_at": str}, pk="id",
+                      not_null={"label", "role", "key_hash", "created_at"})
+    db["keys"].create_index(["key_hash"], unique=True)
+    db["facilities"].create({"facility_id": str, "name": str, "plan": str, "created_at": str,
+                             "current_cycle": int}, pk="facility_id",
+                            not_null={"name", "plan", "created_at", "current_cycle"})
+    db["facilities"].create_index(["plan"])
+    db["cycles"].create({
+        "facility_id": str, "cycle": int, "plan_name": str, "plan_json": str, "status": str,
+        "units": int, "nonconforming": int, "llr": float, "opened_at": str,
+        "decided_seq": int, "decided_at": str, "decided_after_units": int, "at_cap": int,
+        "closed_at": str, "closed_reason": str, "closed_seq": int, "last_record_at": str,
+        "record_count": int,
+    }, pk=("facility_id", "cycle"),
+        not_null={"plan_name", "plan_json", "status", "units", "nonconforming", "llr",
+                  "opened_at", "record_count"},
+        defaults={"units": 0, "nonconforming": 0, "llr": 0.0, "at_cap": 0, "record_count": 0})
+    db["cycles"].create_index(["status"])
+    db["records"].create({
+        "seq": int, "record_id": str, "facility_id": str, "cycle": int, "observed_at": str,
+        "observed_utc": str, "received_at": str, "units": int, "nonconforming": int,
+        "unit_ref": str, "inspector": str, "note": str, "content_hash": str, "counted": int,
+        "void": int, "voided_at": str, "voided_by": str, "void_reason": str, "key_label": str,
+    }, pk="seq", not_null={"record_id", "facility_id", "cycle", "observed_at", "received_at",
+                           "units", "nonconforming", "content_hash", "counted", "void"},
+        defaults={"void": 0})
+    db["records"].create_index(["record_id"], unique=True)
+    db["records"].create_index(["facility_id", "cycle", "seq"])
+    db["alerts"].create({"alert_id": int, "kind": str, "facility_id": str, "cycle": int,
+                         "created_at": str, "state": str, "detail": str, "acked_at": str,
+                         "acked_by": str, "ack_note": str}, pk="alert_id",
+                        not_null={"kind", "facility_id", "created_at", "state", "detail"})
+    db["alerts"].create_index(["state", "kind"])
+    db["alerts"].create_index(["facility_id"])
+    db["actions"].create({"id": int, "at": str, "key_label": str, "role": str, "action": str,
+                          "facility_id": str, "cycle": int, "target": str, "detail": str},
+                         pk="id", not_null={"at", "action", "detail"})
+    db["actions"].create_index(["facility_id", "cycle"])
+    db["counters"].create({"name": str, "value": int}, pk="name", not_null={"value"})
+
+
+MIGRATIONS = [_v1]
+
+
+def migrate(db: sqlite_utils.Database) -> int:
+    """Apply the migrations not yet applied; the caller holds a write transaction."""
+    db.execute("CREATE TABLE IF NOT EXISTS schema_version (version INTEGER NOT NULL)")
+    row = db.execute("SELECT MAX(version) FROM schema_version").fetchone()
+    current = row[0] or 0
+    for number, step in enumerate(MIGRATIONS, start=1):
+        if number > current:
+            step(db)
+            db.execute("INSERT INTO schema_version (version) VALUES (?)", [number])
+    return len(MIGRATIONS)
