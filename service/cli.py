@@ -200,6 +200,42 @@ def _add_import(sub, noun: str) -> None:
     imp.set_defaults(func=run)
 
 
+def _add_backup(sub) -> None:
+    p = sub.add_parser("backup", help="copy the live database now (SQLite online backup)")
+    p.add_argument("--out", required=True, help="file to write")
+    _add_service_options(p)
+    r = sub.add_parser("restore", help="check a backup and bring it back into --db "
+                                       "(stop the service first)")
+    r.add_argument("file")
+    _add_service_options(r)
+
+    def do_backup(a, parser):
+        from .jobs.backup import BackupError, backup_to
+        settings = _settings(a)
+        if not settings.db_path.exists():
+            parser.error(f"argument --db: {settings.db_path} does not exist")
+        try:
+            out = backup_to(settings.db_path, Path(a.out))
+        except (BackupError, OSError) as exc:
+            parser.error(str(exc))
+        print(f"backup of {settings.db_path} written to {out} (integrity check ok)")
+        return 0
+
+    def do_restore(a, parser):
+        from .jobs.backup import BackupError, restore
+        settings = _settings(a)
+        try:
+            version = restore(Path(a.file), settings.db_path)
+        except (BackupError, OSError) as exc:
+            parser.error(str(exc))
+        print(f"restored {a.file} into {settings.db_path} (schema version {version}, "
+              "integrity check ok)")
+        return 0
+
+    p.set_defaults(func=do_backup)
+    r.set_defaults(func=do_restore)
+
+
 def build_parser() -> _Parser:
     parser = _Parser(prog="seqaudit", description="Sequential audit monitor (SPRT).")
     sub = parser.add_subparsers(dest="command", parser_class=_Parser, metavar="COMMAND")
@@ -211,6 +247,7 @@ def build_parser() -> _Parser:
     _add_keys(sub)
     _add_import(sub, "facilities")
     _add_import(sub, "records")
+    _add_backup(sub)
     return parser
 
 

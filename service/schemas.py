@@ -10,7 +10,9 @@ from pydantic import BaseModel, ConfigDict, Field, StrictInt, StrictStr, field_v
 from .clock import parse_rfc3339
 
 Status = Literal["monitoring", "flagged", "cleared", "closed"]
-AlertKind = Literal["flagged", "cleared", "decision_revised", "cap_reached"]
+AlertKind = Literal["flagged", "cleared", "decision_revised", "cap_reached", "stale",
+                    "delivery_failed"]
+WebhookKind = Literal["flagged", "cleared", "decision_revised", "cap_reached", "stale"]
 Role = Literal["field", "analyst", "admin"]
 
 
@@ -245,3 +247,60 @@ class PlanPublic(BaseModel):
     exact: dict[str, Any]
     wald: dict[str, float]
     fixed_sample: dict[str, Any]
+
+
+class WebhookCreate(_Strict):
+    url: StrictStr = Field(min_length=8, max_length=2000, pattern=r"^https?://[^\s]+$")
+    secret: StrictStr | None = Field(default=None, description="whsec_ + base64; made if absent")
+    kinds: list[WebhookKind] = Field(min_length=1)
+
+    @field_validator("secret")
+    @classmethod
+    def _secret(cls, value):
+        if value is not None:
+            from .webhooks import secret_key
+            secret_key(value)
+        return value
+
+
+class WebhookPublic(BaseModel):
+    id: int
+    url: str
+    kinds: list[str]
+    created_at: str
+    active: bool
+    disabled_at: str | None
+    disabled_reason: str | None
+
+
+class WebhookCreated(WebhookPublic):
+    secret: str = Field(description="shown once; verify signatures with it")
+
+
+class DeliveryAttempt(BaseModel):
+    at: str
+    status_code: int | None
+    error: str | None
+    duration_ms: float | None
+
+
+class DeliveryPublic(BaseModel):
+    id: int
+    webhook_id: int
+    alert_id: int
+    msg_id: str
+    event_type: str | None
+    status: Literal["pending", "delivered", "failed", "cancelled"]
+    attempts: int
+    created_at: str
+    next_attempt_at: str | None
+    delivered_at: str | None
+    last_error: str | None
+    attempt_log: list[DeliveryAttempt] = []
+
+
+class DeliveryPage(BaseModel):
+    items: list[DeliveryPublic]
+    total: int
+    limit: int
+    offset: int

@@ -18,6 +18,32 @@ ENV_PREFIX = "SEQAUDIT_"
 
 
 @dataclass(frozen=True)
+class ScheduleSettings:
+    """[schedule]: the calendar jobs (all times UTC)."""
+
+    enabled: bool = True
+    delivery_interval_s: float = 5.0
+    stale_check_s: float = 300.0
+    stale_after_days: float | None = 14.0     # a plan's own stale_after_days wins
+    remonitor_check_s: float = 300.0
+    backup_cron: str | None = None           # crontab fields: minute hour day month weekday
+    backup_dir: Path = PROJECT_ROOT / "data" / "backups"
+    backup_keep: int = 7
+    lease_ttl_s: float = 120.0
+
+
+@dataclass(frozen=True)
+class DeliverySettings:
+    """[delivery]: webhook delivery with exponential backoff and jitter."""
+
+    timeout_s: float = 10.0
+    first_retry_s: float = 30.0      # the first retry comes within this (jittered down to half)
+    max_delay_s: float = 3600.0
+    give_up_after_s: float = 86_400.0
+    batch: int = 50
+
+
+@dataclass(frozen=True)
 class Settings:
     """Everything the service needs to know to run."""
 
@@ -30,6 +56,8 @@ class Settings:
     max_body_bytes: int = 2_000_000
     future_tolerance_s: float = 86_400.0     # observed_at at most this far ahead of the clock
     plans: dict[str, PlanSpec] = field(default_factory=dict)
+    schedule: ScheduleSettings = field(default_factory=ScheduleSettings)
+    delivery: DeliverySettings = field(default_factory=DeliverySettings)
 
     def with_overrides(self, **values) -> "Settings":
         return replace(self, **{k: v for k, v in values.items() if v is not None})
@@ -49,6 +77,33 @@ def _coerce(name: str, kind, value, where: str):
     if kind is int and out < 1:
         raise ConfigError(f"{where}: {name} must be at least 1, got {value!r}")
     return out
+
+
+def _section(data: dict, name: str, cls, path: Path):
+    """A [name] table as a dataclass, checking key names and types."""
+    table = data.get(name, {})
+    known = {f.name: f for f in fields(cls)}
+    unknown = set(table) - set(known)
+    if unknown:
+        raise ConfigError(f"{path}: [{name}] has unknown key(s) {', '.join(sorted(unknown))}; "
+                          f"allowed: {', '.join(sorted(known))}")
+    values = {}
+    for key, raw in table.items():
+        default = getattr(cls(), key)
+        if isinstance(default, bool):
+            if not isinstance(raw, bool):
+                raise ConfigError(f"{path}: [{name}] {key} must be true or false")
+            values[key] = raw
+        elif isinstance(default, Path):
+            p = Path(raw)
+            values[key] = p if p.is_absolute() else (path.parent.parent / p).resolve()
+        elif isinstance(default, (int, float)) and not isinstance(default, bool):
+            if isinstance(raw, bool) or not isinstance(raw, (int, float)) or raw < 0:
+                raise ConfigError(f"{path}: [{name}] {key} must be a number >= 0, got {raw!r}")
+            values[key] = type(default)(raw)
+        else:  # optional strings and numbers
+            values[key] = raw
+    return cls(**values)
 
 
 def load_settings(config_path: str | Path | None = None, environ=None, **overrides) -> Settings:
@@ -76,6 +131,8 @@ def load_settings(config_path: str | Path | None = None, environ=None, **overrid
         raw = env.get(ENV_PREFIX + key.upper())
         if raw not in (None, ""):
             values[name] = _coerce(ENV_PREFIX + key.upper(), kind, raw, "environment")
+    values["schedule"] = _section(data, "schedule", ScheduleSettings, path)
+    values["delivery"] = _section(data, "delivery", DeliverySettings, path)
     settings = Settings(**values)
     known = {f.name for f in fields(Settings)}
     return settings.with_overrides(**{k: v for k, v in overrides.items() if k in known})

@@ -2,7 +2,7 @@
 from __future__ import annotations
 
 import itertools
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import pytest
 from fastapi.testclient import TestClient
@@ -33,9 +33,17 @@ def make_keys(store) -> Keys:
     return Keys(revoked=revoked, **made)
 
 
+def quiet_settings(folder):
+    """The repository's config on a fresh database in ``folder``; the scheduler is off
+    (tests call the job functions directly) and backups stay in the folder."""
+    base = load_settings(db_path=folder / "seqaudit.db")
+    return base.with_overrides(schedule=replace(base.schedule, enabled=False,
+                                                backup_dir=folder / "backups"))
+
+
 @pytest.fixture
 def settings(tmp_path):
-    return load_settings(db_path=tmp_path / "seqaudit.db")
+    return quiet_settings(tmp_path)
 
 
 @pytest.fixture

@@ -13,10 +13,9 @@ from hypothesis import event, given, settings as hsettings, strategies as st
 
 from service.api import create_app
 from service.monitor import Evidence, replay
-from service.settings import load_settings
 from service.store import plan_from_snapshot
 
-from .conftest import make_keys
+from .conftest import make_keys, quiet_settings
 
 PLANS = {"dispensers": (0.02, 0.08, 0.05, 0.10, None),
          "scales_capped": (0.04, 0.12, 0.05, 0.10, 150)}   # as in config/seqaudit.toml
@@ -25,7 +24,7 @@ _n = itertools.count()
 
 @pytest.fixture(scope="module")
 def env(tmp_path_factory):
-    app = create_app(load_settings(db_path=tmp_path_factory.mktemp("replay") / "r.db"))
+    app = create_app(quiet_settings(tmp_path_factory.mktemp("replay")))
     with TestClient(app) as client:
         yield client, make_keys(app.state.monitor.store)
 

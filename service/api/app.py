@@ -10,7 +10,8 @@ from ..clock import utc_now
 from ..operations import Monitor, PlanBook
 from ..settings import Settings, load_settings
 from ..store import Store
-from . import actions, alerts, facilities, health, keys, metrics, plans, problems, records
+from . import actions, alerts, facilities, health, keys, metrics, plans, problems, records, \
+    webhooks
 
 DESCRIPTION = (
     "Sequential audit monitor: Wald's SPRT per facility on the rate of nonconforming passes. "
@@ -28,18 +29,35 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):
-        yield
-        store.close()
+        scheduler = http = None
+        if settings.schedule.enabled:
+            import httpx2
+
+            from ..scheduler import start_scheduler
+            http = httpx2.Client(timeout=settings.delivery.timeout_s, follow_redirects=False)
+            scheduler = start_scheduler(settings, monitor, http)
+        app.state.scheduler = scheduler
+        try:
+            yield
+        finally:
+            if scheduler is not None:
+                scheduler.shutdown(wait=True)
+                http.close()
+            store.close()
 
     app = FastAPI(title="seqaudit", version="0.1.0", description=DESCRIPTION, lifespan=lifespan)
     app.state.settings = settings
     app.state.monitor = monitor
     problems.install(app)
-    for module in (health, facilities, records, alerts, plans, metrics, actions, keys):
+    for module in (health, facilities, records, alerts, plans, metrics, actions, keys, webhooks):
         app.include_router(module.router)
     return app
 
 
 def app_from_env() -> FastAPI:
     """Factory for uvicorn workers: settings from SEQAUDIT_* variables and the config file."""
+    import logging
+    logging.basicConfig(level=logging.INFO, format="%(levelname)s:     %(name)s: %(message)s")
+    for noisy in ("apscheduler", "httpx2", "httpcore2", "httpx", "httpcore"):
+        logging.getLogger(noisy).setLevel(logging.WARNING)
     return create_app(load_settings())

@@ -22,6 +22,7 @@ from ..errors import Conflict, Invalid, NotFound
 from ..monitor import CLOSED, CycleState, Evidence, apply_record, llr_path, replay
 from ..stats import MONITORING, SprtPlan
 from .migrations import migrate
+from .outbox import OutboxMixin
 
 ROLES = ("field", "analyst", "admin")
 KEY_PREFIX = "sqa_"
@@ -82,7 +83,7 @@ def _rows(cursor) -> list[dict]:
     return [dict(zip(names, r)) for r in cursor.fetchall()]
 
 
-class Store:
+class Store(OutboxMixin):
     """Access to one SQLite file; safe to share between threads (one connection each)."""
 
     def __init__(self, path: str | Path):
@@ -460,14 +461,15 @@ class Store:
             out.append(("cap_reached", cyc["facility_id"], cyc["cycle"], now, detail))
         return out
 
-    @staticmethod
-    def _insert_alerts(conn, alerts: list[tuple]) -> list[int]:
+    def _insert_alerts(self, conn, alerts: list[tuple]) -> list[int]:
+        """Insert alerts and, in the same transaction, their webhook outbox rows."""
         ids = []
         for kind, fid, cycle, now, detail in alerts:
             cur = conn.execute("INSERT INTO alerts (kind, facility_id, cycle, created_at, state, "
                                "detail) VALUES (?, ?, ?, ?, 'open', ?)",
                                (kind, fid, cycle, now, json.dumps(detail, sort_keys=True)))
             ids.append(cur.lastrowid)
+            self._enqueue(conn, cur.lastrowid, kind, fid, cycle, detail, now)
         return ids
 
     def records(self, facility_id: str, cycle: int) -> list[dict]:

@@ -52,7 +52,33 @@ def _v1(db: sqlite_utils.Database) -> None:
     db["counters"].create({"name": str, "value": int}, pk="name", not_null={"value"})
 
 
-MIGRATIONS = [_v1]
+def _v2(db: sqlite_utils.Database) -> None:
+    """Webhook subscriptions, the outbox written with each alert, delivery attempts, job leases."""
+    db["webhooks"].create({"id": int, "url": str, "secret": str, "kinds": str, "created_at": str,
+                           "disabled_at": str, "disabled_reason": str}, pk="id",
+                          not_null={"url", "secret", "kinds", "created_at"})
+    db["outbox"].create({"id": int, "webhook_id": int, "alert_id": int, "msg_id": str,
+                         "event_type": str, "payload": str, "status": str, "attempts": int,
+                         "created_at": str, "window_start": str, "next_attempt_at": str,
+                         "delivered_at": str, "last_error": str}, pk="id",
+                        not_null={"webhook_id", "alert_id", "msg_id", "payload", "status",
+                                  "attempts", "created_at", "window_start"},
+                        defaults={"attempts": 0})
+    db["outbox"].create_index(["status", "next_attempt_at"])
+    db["outbox"].create_index(["webhook_id", "id"])
+    db["outbox"].create_index(["msg_id"], unique=True)
+    db["delivery_attempts"].create({"id": int, "outbox_id": int, "at": str, "status_code": int,
+                                    "error": str, "duration_ms": float}, pk="id",
+                                   not_null={"outbox_id", "at"})
+    db["delivery_attempts"].create_index(["outbox_id"])
+    db["leases"].create({"name": str, "holder": str, "expires_at": float}, pk="name",
+                        not_null={"holder", "expires_at"})
+    db["job_runs"].create({"job": str, "tick": int, "holder": str, "started_at": str,
+                           "finished_at": str, "outcome": str}, pk=("job", "tick"),
+                          not_null={"holder", "started_at"})
+
+
+MIGRATIONS = [_v1, _v2]
 
 
 def migrate(db: sqlite_utils.Database) -> int:
