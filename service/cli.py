@@ -236,6 +236,44 @@ def _add_backup(sub) -> None:
     r.set_defaults(func=do_restore)
 
 
+def _add_casefile(sub) -> None:
+    p = sub.add_parser("casefile", help="write the case file of a decided cycle (.pdf or .json)")
+    p.add_argument("facility_id")
+    p.add_argument("--cycle", type=_unit_count, default=None,
+                   help="cycle number (default: the current cycle)")
+    p.add_argument("--out", required=True, help="FILE.pdf or FILE.json")
+    p.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
+    _add_service_options(p)
+
+    def run(a, parser):
+        import json as _json
+        from .casefile import build_casefile
+        from .errors import ServiceError
+        from .store import Store
+        out = Path(a.out)
+        if out.suffix.lower() not in (".pdf", ".json"):
+            parser.error(f"argument --out: must end in .pdf or .json, got {a.out!r}")
+        if not 0 < a.level < 1:
+            parser.error(f"argument --level: must lie strictly between 0 and 1, got {a.level}")
+        settings = _settings(a)
+        if not settings.db_path.exists():
+            parser.error(f"argument --db: {settings.db_path} does not exist")
+        try:
+            cf = build_casefile(Store(settings.db_path), a.facility_id, a.cycle, a.level)
+        except ServiceError as exc:
+            parser.error(exc.detail)
+        if out.suffix.lower() == ".json":
+            out.write_text(_json.dumps(cf, indent=2), encoding="utf-8")
+        else:
+            from .casefile.pdf import render_pdf
+            out.write_bytes(render_pdf(cf))
+        print(f"case file of {a.facility_id} cycle {cf['cycle']} ({cf['decision']}) written to "
+              f"{out}")
+        return 0
+
+    p.set_defaults(func=run)
+
+
 def build_parser() -> _Parser:
     parser = _Parser(prog="seqaudit", description="Sequential audit monitor (SPRT).")
     sub = parser.add_subparsers(dest="command", parser_class=_Parser, metavar="COMMAND")
@@ -248,6 +286,7 @@ def build_parser() -> _Parser:
     _add_import(sub, "facilities")
     _add_import(sub, "records")
     _add_backup(sub)
+    _add_casefile(sub)
     return parser
 
 

@@ -304,3 +304,44 @@ class DeliveryPage(BaseModel):
     total: int
     limit: int
     offset: int
+
+
+class CaseFacility(BaseModel):
+    facility_id: str
+    name: str
+    plan: str
+    registered_at: str
+
+
+class CaseFilePublic(BaseModel):
+    """The case file of a decided cycle (the PDF shows the same content)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    facility: CaseFacility
+    cycle: int
+    decision: Literal["flagged", "cleared"]
+    decided_at: str | None
+    decided_after_units: int
+    decided_at_cap: bool
+    units: int
+    nonconforming: int
+    llr: float
+    p_value: float = Field(ge=0, le=1)
+    ci_level: float = Field(gt=0, lt=1)
+    ci_low: float = Field(ge=0, le=1)
+    ci_high: float = Field(ge=0, le=1)
+    estimate_median_unbiased: float = Field(ge=0, le=1)
+    estimate_naive: float = Field(ge=0, le=1)
+    estimate_naive_note: str
+    plan: dict[str, Any]
+    plan_explained: dict[str, str]
+    cycle_state: CyclePublic
+    records: list[RecordPublic]
+    actions: list[ActionPublic]
+    curve: list[dict[str, Any]]
+    method: str
+    caution: str
+    assumptions: list[str]
+    not_checked: list[str]
+    generated_at: str

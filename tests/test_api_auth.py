@@ -8,9 +8,17 @@ ROLES = [None, "field", "analyst", "admin", "revoked"]
 RANK = {"field": 0, "analyst": 1, "admin": 2}
 
 
-def routes(fid, rid, aid):
+def routes(fid, rid, aid, hook, delivery):
     """(method, path, body, minimum role, success status)"""
     return [
+        ("GET", f"/v1/facilities/{fid}/cycles/1/casefile.json", None, "analyst", 200),
+        ("GET", f"/v1/facilities/{fid}/cycles/1/casefile.pdf", None, "analyst", 200),
+        ("GET", "/v1/webhooks", None, "admin", 200),
+        ("GET", f"/v1/webhooks/{hook}/deliveries", None, "admin", 200),
+        ("POST", f"/v1/webhooks/{hook}/deliveries/{delivery}/retry", None, "admin", 202),
+        ("POST", "/v1/webhooks", {"url": "http://127.0.0.1:9/h", "kinds": ["stale"]}, "admin",
+         201),
+        ("DELETE", "/v1/webhooks/NEWHOOK", None, "admin", 200),
         ("GET", "/v1/facilities", None, "analyst", 200),
         ("GET", f"/v1/facilities/{fid}", None, "analyst", 200),
         ("GET", f"/v1/facilities/{fid}/records", None, "analyst", 200),
@@ -40,6 +48,8 @@ def expected(role, minimum, success):
 @pytest.mark.parametrize("role", ROLES)
 def test_route_matrix(client, keys, role):
     hdr = keys.header("admin")
+    hook = client.post("/v1/webhooks", json={"url": "http://127.0.0.1:9/h", "kinds": ["flagged"]},
+                       headers=hdr).json()["id"]
     fid = new_facility(client, keys)
     for i in range(3):  # a flag gives an alert to acknowledge
         client.post("/v1/records", json=record(fid, f"{fid}-m{i}", 1), headers=hdr)
@@ -47,8 +57,12 @@ def test_route_matrix(client, keys, role):
         "items"][0]["alert_id"]
     extra_key = client.post("/v1/keys", json={"role": "field", "label": "spare"}, headers=hdr)
     spare_id = extra_key.json()["id"]
+    delivery = client.get(f"/v1/webhooks/{hook}/deliveries", headers=hdr).json()["items"][0]["id"]
+    spare_hook = client.post("/v1/webhooks", json={"url": "http://127.0.0.1:9/x",
+                                                   "kinds": ["stale"]}, headers=hdr).json()["id"]
     counter = 0
-    for method, path, body, minimum, success in routes(fid, f"{fid}-m0", aid):
+    for method, path, body, minimum, success in routes(fid, f"{fid}-m0", aid, hook, delivery):
+        path = path.replace("NEWHOOK", str(spare_hook))
         counter += 1
         if body == "facility":
             body = {"facility_id": f"{fid}-new-{role}", "name": "New", "plan": "scales"}

@@ -120,6 +120,13 @@ def test_duplicate_facility_is_409(client, keys):
     ("POST", "/v1/keys", {"role": "root", "label": "x"}, 422),
     ("POST", "/v1/keys/99999/revoke", None, 404),
     ("GET", "/v1/actions?cycle=0", None, 422),
+    ("GET", "/v1/webhooks/999/deliveries", None, 404),
+    ("POST", "/v1/webhooks/999/deliveries/1/retry", None, 404),
+    ("DELETE", "/v1/webhooks/999", None, 404),
+    ("POST", "/v1/webhooks", {"url": "not a url", "kinds": ["flagged"]}, 422),
+    ("POST", "/v1/webhooks", {"url": "http://127.0.0.1:9/h", "kinds": ["everything"]}, 422),
+    ("GET", "/v1/facilities/NOPE/cycles/1/casefile.json", None, 404),
+    ("GET", "/v1/facilities/NOPE/cycles/x/casefile.pdf", None, 422),
 ])
 def test_error_routes(client, keys, method, path, body, status):
     r = client.request(method, path, json=body, headers=keys.header("admin"))

@@ -10,8 +10,8 @@ from ..clock import utc_now
 from ..operations import Monitor, PlanBook
 from ..settings import Settings, load_settings
 from ..store import Store
-from . import actions, alerts, facilities, health, keys, metrics, plans, problems, records, \
-    webhooks
+from . import actions, alerts, casefiles, facilities, health, keys, metrics, plans, problems, \
+    records, webhooks
 
 DESCRIPTION = (
     "Sequential audit monitor: Wald's SPRT per facility on the rate of nonconforming passes. "
@@ -49,7 +49,8 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     app.state.settings = settings
     app.state.monitor = monitor
     problems.install(app)
-    for module in (health, facilities, records, alerts, plans, metrics, actions, keys, webhooks):
+    for module in (health, facilities, casefiles, records, alerts, plans, metrics, actions, keys,
+                   webhooks):
         app.include_router(module.router)
     return app
 

@@ -166,6 +166,15 @@ def design(p0: float, p1: float, alpha: float, beta: float, max_units: int | Non
     """
     wald_plan = SprtPlan.wald(p0, p1, alpha, beta, max_units=max_units, cut_llr=cut_llr)
     plan = _calibrate(wald_plan).plan if calibrate else wald_plan
+    return design_plan(plan, calibrated=bool(calibrate), curve_points=curve_points)
+
+
+def design_plan(plan: SprtPlan, calibrated: bool = False,
+                curve_points: int = CURVE_POINTS) -> DesignResult:
+    """The figures of a plan whose boundaries are already fixed (e.g. a stored snapshot)."""
+    p0, p1, alpha, beta = plan.p0, plan.p1, plan.alpha, plan.beta
+    wald_plan = SprtPlan.wald(p0, p1, alpha, beta, max_units=plan.max_units,
+                              cut_llr=plan.cut_llr)
     counts = PathCounts(plan)
     grid = curve_rates(plan, max(int(curve_points), CURVE_POINTS))
     # The curve first, so that the recursion runs as far as its slowest rate needs.
@@ -174,7 +183,7 @@ def design(p0: float, p1: float, alpha: float, beta: float, max_units: int | Non
     asn_max, p_at = _asn_peak(counts, grid, curve.asn)
     residual = float(max(curve.residual.max(), exact.residual.max()))
     wf, wa = wald.wald_curve(plan, grid)
-    return DesignResult(plan=plan, calibrated=bool(calibrate), wald_plan=wald_plan, exact=exact,
+    return DesignResult(plan=plan, calibrated=calibrated, wald_plan=wald_plan, exact=exact,
                         curve=curve, asn_max=asn_max, p_at_asn_max=p_at, residual=residual,
                         wald=wald.approximate(plan), wald_curve_flag=wf, wald_curve_asn=wa,
                         fixed=fixed_sample_plan(p0, p1, alpha, beta))

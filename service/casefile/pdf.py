@@ -1,0 +1,153 @@
+"""The case file as a PDF (reportlab for the document, matplotlib for the charts)."""
+from __future__ import annotations
+
+import io
+from html import escape
+
+from reportlab.lib import colors
+from reportlab.lib.pagesizes import A4
+from reportlab.lib.styles import ParagraphStyle, getSampleStyleSheet
+from reportlab.lib.units import mm
+from reportlab.platypus import (Image, KeepTogether, PageBreak, Paragraph, SimpleDocTemplate,
+                                Spacer, Table, TableStyle)
+
+from ..charts import curves_figure, figure_png, path_figure
+
+_STYLES = getSampleStyleSheet()
+BODY = ParagraphStyle("body", parent=_STYLES["BodyText"], fontSize=9.5, leading=12.5)
+SMALL = ParagraphStyle("small", parent=BODY, fontSize=7.5, leading=9.5)
+H1 = ParagraphStyle("h1", parent=_STYLES["Heading1"], fontSize=16, spaceAfter=6)
+H2 = ParagraphStyle("h2", parent=_STYLES["Heading2"], fontSize=12, spaceBefore=8, spaceAfter=4)
+CAUTION = ParagraphStyle("caution", parent=BODY, backColor=colors.HexColor("#FFF4E0"),
+                         borderColor=colors.HexColor("#D55E00"), borderWidth=1, borderPadding=6,
+                         spaceBefore=6, spaceAfter=10)
+
+
+def _t(value) -> str:
+    """Text for a Paragraph: reportlab reads markup, so everything from users is escaped."""
+    return "-" if value is None else escape(str(value))
+
+
+def _p(text: str, style=BODY) -> Paragraph:
+    return Paragraph(text, style)
+
+
+def _fmt(x, digits=4) -> str:
+    if x is None:
+        return "-"
+    if isinstance(x, float):
+        return f"{x:.{digits}g}"
+    return str(x)
+
+
+def _grid(rows, widths, header=True, font=8):
+    table = Table(rows, colWidths=widths, repeatRows=1 if header else 0)
+    style = [("FONTSIZE", (0, 0), (-1, -1), font), ("VALIGN", (0, 0), (-1, -1), "TOP"),
+             ("GRID", (0, 0), (-1, -1), 0.25, colors.HexColor("#999999")),
+             ("LEFTPADDING", (0, 0), (-1, -1), 3), ("RIGHTPADDING", (0, 0), (-1, -1), 3)]
+    if header:
+        style += [("BACKGROUND", (0, 0), (-1, 0), colors.HexColor("#DCE9F5")),
+                  ("FONTNAME", (0, 0), (-1, 0), "Helvetica-Bold")]
+    table.setStyle(TableStyle(style))
+    return table
+
+
+def render_pdf(cf: dict) -> bytes:
+    buf = io.BytesIO()
+    fac = cf["facility"]
+    doc = SimpleDocTemplate(buf, pagesize=A4, leftMargin=16 * mm, rightMargin=16 * mm,
+                            topMargin=16 * mm, bottomMargin=16 * mm,
+                            title=f"Case file {fac['facility_id']} cycle {cf['cycle']}",
+                            author="seqaudit", subject="Sequential audit case file")
+    plan = cf["plan"]
+    story = [
+        _p(f"Case file: {_t(fac['name'])} ({_t(fac['facility_id'])}), cycle {cf['cycle']}", H1),
+        _p(f"<b>Caution.</b> {_t(cf['caution'])} The test assumes that "
+           + "; ".join(_t(a) for a in cf["assumptions"]) + ".", CAUTION),
+        _p("Decision", H2),
+        _grid([["decision", cf["decision"].upper()],
+               ["decided after", f"{cf['decided_after_units']} units audited"
+                                 + (" (at the cap, by the cut rule)" if cf["decided_at_cap"]
+                                    else "")],
+               ["decided at (receipt time, UTC)", _t(cf["decided_at"])],
+               ["units audited / nonconforming", f"{cf['units']} / {cf['nonconforming']}"],
+               ["LLR at the decision", _fmt(cf["llr"])]], [60 * mm, 118 * mm], header=False,
+              font=9),
+        _p("What the data say about the facility's rate", H2),
+        _grid([["quantity", "value", "meaning"],
+               ["sequential p-value (H0: rate = p0)", _fmt(cf["p_value"]),
+                _p("chance, at the tolerated rate, of an outcome at least as extreme upward",
+                   SMALL)],
+               [f"{100 * cf['ci_level']:g} % confidence interval",
+                f"{cf['ci_low']:.4f} to {cf['ci_high']:.4f}",
+                _p("exact, by inverting the stagewise ordering", SMALL)],
+               ["median-unbiased estimate", f"{cf['estimate_median_unbiased']:.4f}",
+                _p("rate at which the upward chance is one half", SMALL)],
+               ["naive d/n (biased)", f"{cf['estimate_naive']:.4f}",
+                _p(_t(cf["estimate_naive_note"]), SMALL)]],
+              [58 * mm, 40 * mm, 80 * mm], font=8.5),
+        _p("The plan and why its numbers mean what they mean", H2),
+        _p(f"Plan <b>{_t(plan.get('name'))}</b>: p0 = {plan['p0']:g}, p1 = {plan['p1']:g}, "
+           f"alpha = {plan['alpha']:g}, beta = {plan['beta']:g}"
+           + (f", cap {plan['max_units']} units" if plan.get("max_units") else "")
+           + (" (calibrated boundaries)" if plan.get("calibrate") else " (Wald's boundaries)")
+           + f"; flag at LLR &ge; {plan['upper_llr']:.4f}, clear at LLR &le; "
+             f"{plan['lower_llr']:.4f}."),
+    ]
+    story += [_p("&bull; " + _t(text)) for text in cf["plan_explained"].values()]
+    story += [_p(f"Exact error rates of this plan: false flag {plan['exact_alpha']:.5f}, "
+                 f"missed facility {plan['exact_beta']:.5f}. Expected workload: "
+                 f"{plan['asn_p0']:.1f} units at p0, {plan['asn_p1']:.1f} at p1, at most "
+                 f"{plan['asn_max']:.1f} at any rate."),
+              PageBreak(),
+              _p("The path of the evidence", H2),
+              Image(io.BytesIO(figure_png(path_figure(cf))), width=178 * mm, height=75 * mm),
+              _p("Each step is one record in order of receipt. Void records are not evidence "
+                 "and are marked with a cross; records after the decision are kept but do not "
+                 "move it.", SMALL),
+              _p("Operating characteristic and workload of the plan", H2),
+              Image(io.BytesIO(figure_png(curves_figure(cf["curve"], plan["p0"], plan["p1"],
+                                                         cf["estimate_median_unbiased"],
+                                                         "median-unbiased estimate"))),
+                    width=178 * mm, height=71 * mm),
+              PageBreak(),
+              _p("Every record of the cycle, in order of receipt", H2)]
+    rows = [["seq", "record id", "observed at", "units", "nc", "inspector", "LLR after",
+             "status and note"]]
+    for r in cf["records"]:
+        cells = [str(r["seq"]), _t(r["record_id"]), _t(r["observed_at"]), str(r["units"]),
+                 str(r["nonconforming"]), _t(r["inspector"]), _fmt(r["llr_after"]),
+                 "void: " + _t(r["void_reason"]) + f" ({_t(r['voided_by'])})" if r["void"]
+                 else ("evidence" if r["evidence"] else "after decision")]
+        if r["note"]:
+            cells[-1] += "<br/>note: " + _t(r["note"])
+        if r["void"]:
+            cells = [_p(f"<strike>{c}</strike>", SMALL) for c in cells[:-1]] + \
+                    [_p(cells[-1], SMALL)]
+        else:
+            cells = [_p(c, SMALL) for c in cells]
+        rows.append(cells)
+    story.append(_grid(rows, [12 * mm, 30 * mm, 34 * mm, 11 * mm, 9 * mm, 26 * mm, 16 * mm,
+                              40 * mm]))
+    story += [_p("Action log of the cycle", H2)]
+    if cf["actions"]:
+        arows = [["when (UTC)", "who", "action", "detail"]]
+        for a in cf["actions"]:
+            detail = ", ".join(f"{k}: {v}" for k, v in a["detail"].items())
+            arows.append([_p(_t(a["at"]), SMALL), _p(_t(a["key_label"]), SMALL),
+                          _p(_t(a["action"]), SMALL), _p(_t(detail), SMALL)])
+        story.append(_grid(arows, [36 * mm, 30 * mm, 30 * mm, 82 * mm]))
+    else:
+        story.append(_p("No manual action was taken in this cycle."))
+    story += [KeepTogether([
+        _p("Cautions", H2),
+        _p(_t(cf["caution"]), CAUTION),
+        _p("The test's assumptions:"),
+        *[_p("&bull; " + _t(a)) for a in cf["assumptions"]],
+        _p("What this service did not check:"),
+        *[_p("&bull; " + _t(a)) for a in cf["not_checked"]],
+        Spacer(1, 4 * mm),
+        _p("Method", H2), _p(_t(cf["method"]), SMALL),
+        _p(f"Generated {_t(cf['generated_at'])} by seqaudit.", SMALL)])]
+    doc.build(story)
+    return buf.getvalue()
