@@ -68,3 +68,14 @@ class LiveServer:
 
     def __exit__(self, *exc):
         self.stop()
+
+
+def quiet_config(folder: Path) -> Path:
+    """The repository's configuration with the scheduler off, written into ``folder``."""
+    from service.settings import DEFAULT_CONFIG
+    text = DEFAULT_CONFIG.read_text(encoding="utf-8")
+    text = text.replace("enabled = true", "enabled = false")
+    text = text.replace('backup_dir = "data/backups"', f'backup_dir = "{folder / "backups"}"')
+    out = folder / "seqaudit-test.toml"
+    out.write_text(text, encoding="utf-8")
+    return out

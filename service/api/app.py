@@ -49,6 +49,8 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     app.state.settings = settings
     app.state.monitor = monitor
     problems.install(app)
+    from ..web.install import install_ui
+    install_ui(app)
     for module in (health, facilities, casefiles, records, alerts, plans, metrics, actions, keys,
                    webhooks):
         app.include_router(module.router)

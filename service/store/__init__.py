@@ -22,7 +22,7 @@ from ..errors import Conflict, Invalid, NotFound
 from ..monitor import CLOSED, CycleState, Evidence, apply_record, llr_path, replay
 from ..stats import MONITORING, SprtPlan
 from .migrations import migrate
-from .outbox import OutboxMixin
+from .outbox import OutboxMixin, SessionMixin
 
 ROLES = ("field", "analyst", "admin")
 KEY_PREFIX = "sqa_"
@@ -83,7 +83,7 @@ def _rows(cursor) -> list[dict]:
     return [dict(zip(names, r)) for r in cursor.fetchall()]
 
 
-class Store(OutboxMixin):
+class Store(OutboxMixin, SessionMixin):
     """Access to one SQLite file; safe to share between threads (one connection each)."""
 
     def __init__(self, path: str | Path):

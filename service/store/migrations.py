@@ -78,7 +78,14 @@ def _v2(db: sqlite_utils.Database) -> None:
                           not_null={"holder", "started_at"})
 
 
-MIGRATIONS = [_v1, _v2]
+def _v3(db: sqlite_utils.Database) -> None:
+    """Dashboard sign-in sessions (the cookie holds a random token; only its hash is kept)."""
+    db["ui_sessions"].create({"token_hash": str, "key_id": int, "csrf": str, "created_at": str,
+                              "expires_at": float}, pk="token_hash",
+                             not_null={"key_id", "csrf", "created_at", "expires_at"})
+
+
+MIGRATIONS = [_v1, _v2, _v3]
 
 
 def migrate(db: sqlite_utils.Database) -> int:

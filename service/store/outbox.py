@@ -256,3 +256,27 @@ class OutboxMixin:
                 "c ON c.facility_id = f.facility_id AND c.cycle = f.current_cycle WHERE "
                 "c.status = 'cleared' AND f.plan = ? AND c.decided_at <= ?", (plan, cutoff))
         return out
+
+
+class SessionMixin:
+    """Dashboard sessions."""
+
+    def create_session(self, token_hash: str, key_id: int, csrf: str, now: str,
+                       expires_at: float) -> None:
+        with self.write() as conn:
+            conn.execute("DELETE FROM ui_sessions WHERE expires_at < ?", (expires_at - 86400 * 30,))
+            conn.execute("INSERT INTO ui_sessions (token_hash, key_id, csrf, created_at, "
+                         "expires_at) VALUES (?, ?, ?, ?, ?)",
+                         (token_hash, key_id, csrf, now, expires_at))
+
+    def session(self, token_hash: str, now_s: float) -> dict | None:
+        rows = self.read("SELECT s.csrf, s.expires_at, k.id AS key_id, k.label, k.role, "
+                         "k.revoked_at FROM ui_sessions s JOIN keys k ON k.id = s.key_id "
+                         "WHERE s.token_hash = ?", (token_hash,))
+        if not rows or rows[0]["expires_at"] < now_s or rows[0]["revoked_at"] is not None:
+            return None
+        return rows[0]
+
+    def end_session(self, token_hash: str) -> None:
+        with self.write() as conn:
+            conn.execute("DELETE FROM ui_sessions WHERE token_hash = ?", (token_hash,))

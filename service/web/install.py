@@ -1,0 +1,83 @@
+"""Wire the dashboard into the app: routes, static files, HTML errors, security headers."""
+from __future__ import annotations
+
+from pathlib import Path
+
+from fastapi import FastAPI, Request
+from fastapi.responses import RedirectResponse
+from fastapi.staticfiles import StaticFiles
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from ..errors import ServiceError
+from .routes import router, templates
+from .sessions import BadCsrf, SignInRequired, current_user
+
+STATIC = Path(__file__).resolve().parent / "static"
+UI_HEADERS = {
+    "Content-Security-Policy": "default-src 'self'; img-src 'self' data:; style-src 'self'; "
+                               "script-src 'self'; object-src 'none'; base-uri 'none'; "
+                               "form-action 'self'; frame-ancestors 'none'",
+    "X-Content-Type-Options": "nosniff",
+    "X-Frame-Options": "DENY",
+    "Referrer-Policy": "same-origin",
+    "Cache-Control": "no-store",
+}
+
+
+def _is_ui(request: Request) -> bool:
+    return request.url.path == "/ui" or request.url.path.startswith("/ui/")
+
+
+def _user_or_none(request: Request):
+    try:
+        return current_user(request)
+    except SignInRequired:
+        return None
+
+
+def error_page(request: Request, status: int, title: str, detail: str):
+    return templates.TemplateResponse(request, "error.html",
+                                      {"user": _user_or_none(request), "title": title,
+                                       "detail": detail}, status_code=status)
+
+
+def install_ui(app: FastAPI) -> None:
+    app.include_router(router)
+    app.mount("/ui/static", StaticFiles(directory=str(STATIC)), name="ui-static")
+
+    @app.middleware("http")
+    async def security_headers(request: Request, call_next):
+        response = await call_next(request)
+        if _is_ui(request):
+            for name, value in UI_HEADERS.items():
+                if name == "Cache-Control" and request.url.path.startswith("/ui/static/"):
+                    continue
+                response.headers.setdefault(name, value)
+        return response
+
+    @app.exception_handler(SignInRequired)
+    async def _signin(request: Request, exc: SignInRequired):
+        return RedirectResponse("/ui/signin", status_code=303)
+
+    @app.exception_handler(BadCsrf)
+    async def _csrf(request: Request, exc: BadCsrf):
+        return error_page(request, 403, "Form refused",
+                          "This form was missing its security token or carried a wrong one. "
+                          "Reload the page and try again.")
+
+    # API errors stay problem+json; on /ui the same errors become pages.
+    api_service = app.exception_handlers[ServiceError]
+    api_http = app.exception_handlers[StarletteHTTPException]
+
+    @app.exception_handler(ServiceError)
+    async def _service(request: Request, exc: ServiceError):
+        if _is_ui(request):
+            return error_page(request, exc.status, exc.title, exc.detail)
+        return await api_service(request, exc)
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _http(request: Request, exc: StarletteHTTPException):
+        if _is_ui(request):
+            return error_page(request, exc.status_code, "Not found" if exc.status_code == 404
+                              else "Request refused", str(exc.detail))
+        return await api_http(request, exc)

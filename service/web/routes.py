@@ -1,0 +1,270 @@
+"""Dashboard pages. Handlers only parse the form, call the same operations as the API, render."""
+from __future__ import annotations
+
+import math
+import secrets
+from pathlib import Path
+from urllib.parse import urlencode
+
+from fastapi import APIRouter, Depends, Form, Request
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
+from fastapi.templating import Jinja2Templates
+
+from ..cautions import ASSUMPTIONS, SIGNAL_NOT_VERDICT
+from ..errors import ServiceError
+from ..operations import Monitor
+from ..stats import PlanInputError
+from .sessions import (COOKIE, LOGIN_CSRF_COOKIE, BadCsrf, SignInRequired, UiUser, check_csrf,
+                       cookie_args, current_user, sign_in)
+from .svg import COLOURS, curve_chart, llr_bar, path_chart
+
+HERE = Path(__file__).resolve().parent
+templates = Jinja2Templates(directory=str(HERE / "templates"))
+templates.env.globals.update(caution=SIGNAL_NOT_VERDICT, assumptions=ASSUMPTIONS,
+                             colours=COLOURS, llr_bar=llr_bar)
+router = APIRouter(prefix="/ui", include_in_schema=False)
+
+STATUS_TEXT = {"monitoring": "Monitoring", "flagged": "Flagged", "cleared": "Cleared",
+               "closed": "Closed"}
+templates.env.globals["status_text"] = STATUS_TEXT
+PAGE = 50
+
+
+def monitor(request: Request) -> Monitor:
+    return request.app.state.monitor
+
+
+def page(request: Request, name: str, user: UiUser | None, status: int = 200, **ctx):
+    return templates.TemplateResponse(request, name, {"user": user, **ctx}, status_code=status)
+
+
+def back(url: str, message: str | None = None, kind: str = "ok") -> RedirectResponse:
+    if message:
+        sep = "&" if "?" in url else "?"
+        url = f"{url}{sep}{urlencode({'msg': message, 'kind': kind})}"
+    return RedirectResponse(url, status_code=303)
+
+
+# -- sign-in --------------------------------------------------------------------------
+@router.get("", response_class=HTMLResponse)
+@router.get("/", response_class=HTMLResponse)
+def root():
+    return RedirectResponse("/ui/overview", status_code=303)
+
+
+@router.get("/signin", response_class=HTMLResponse)
+def signin_form(request: Request, msg: str | None = None):
+    token = secrets.token_urlsafe(24)
+    resp = page(request, "signin.html", None, csrf=token, msg=msg)
+    resp.set_cookie(LOGIN_CSRF_COOKIE, token, max_age=3600, **cookie_args(request))
+    return resp
+
+
+@router.post("/signin", response_class=HTMLResponse)
+def signin(request: Request, key: str = Form(""), csrf: str = Form(""),
+           m: Monitor = Depends(monitor)):
+    expected = request.cookies.get(LOGIN_CSRF_COOKIE)
+    if not expected or not csrf or not secrets.compare_digest(expected, csrf):
+        raise BadCsrf()
+    token, message = sign_in(m.store, key, m.clock())
+    if token is None:
+        fresh = secrets.token_urlsafe(24)
+        resp = page(request, "signin.html", None, status=401, csrf=fresh, msg=message)
+        resp.set_cookie(LOGIN_CSRF_COOKIE, fresh, max_age=3600, **cookie_args(request))
+        return resp
+    resp = back("/ui/overview")
+    resp.set_cookie(COOKIE, token, max_age=8 * 3600, **cookie_args(request))
+    resp.delete_cookie(LOGIN_CSRF_COOKIE, path="/ui")
+    return resp
+
+
+@router.post("/signout")
+def signout(request: Request, csrf: str = Form(""), user: UiUser = Depends(current_user),
+            m: Monitor = Depends(monitor)):
+    check_csrf(user, csrf)
+    m.store.end_session(user.token_hash)
+    resp = back("/ui/signin", "Signed out.")
+    resp.delete_cookie(COOKIE, path="/ui")
+    return resp
+
+
+# -- overview ------------------------------------------------------------------------------
+SORTS = {"llr_position": "position between the boundaries", "units": "units audited",
+         "last_record_at": "last record", "facility_id": "facility id", "name": "name"}
+
+
+@router.get("/overview", response_class=HTMLResponse)
+def overview(request: Request, q: str = "", status: str = "", plan: str = "",
+             sort: str = "llr_position", dir: str = "desc", page_no: int = 1,
+             msg: str | None = None, user: UiUser = Depends(current_user),
+             m: Monitor = Depends(monitor)):
+    status = status if status in STATUS_TEXT else ""
+    plan = plan if plan in m.plans.specs else ""
+    sort = sort if sort in SORTS else "llr_position"
+    page_no = max(page_no, 1)
+    listing = m.facilities(status=status or None, plan=plan or None, search=q.strip() or None,
+                           sort=sort, descending=dir != "asc", limit=PAGE,
+                           offset=(page_no - 1) * PAGE)
+    counts = m.store.status_counts()
+    pages = max(1, math.ceil(listing["total"] / PAGE))
+    query = {"q": q, "status": status, "plan": plan, "sort": sort, "dir": dir}
+    return page(request, "overview.html", user, listing=listing, counts=counts,
+                open_alerts=m.store.open_alert_count(), plans=sorted(m.plans.specs),
+                sorts=SORTS, query=query, page_no=page_no, pages=pages, msg=msg,
+                qs=lambda **kw: urlencode({**query, **kw}))
+
+
+# -- one facility -------------------------------------------------------------------------
+@router.get("/facilities/{facility_id}", response_class=HTMLResponse)
+def facility(request: Request, facility_id: str, cycle: int | None = None,
+             msg: str | None = None, kind: str = "ok", user: UiUser = Depends(current_user),
+             m: Monitor = Depends(monitor)):
+    fac = m.facility(facility_id)
+    number = cycle or fac["cycle"]
+    records = m.records(facility_id, number)["items"]
+    cyc = next((c for c in fac["cycles"] if c["cycle"] == number), None)
+    if cyc is None:
+        raise ServiceError(f"facility {facility_id!r} has no cycle {number}")
+    points, units, voids = [(0, 0.0)], 0, []
+    for r in records:
+        if r["void"]:
+            voids.append(units)
+        elif r["evidence"]:
+            units += r["units"]
+            points.append((units, r["llr_after"]))
+    decided = ((cyc["decided_after_units"], cyc["llr"], cyc["status"])
+               if cyc["decided_after_units"] is not None else None)
+    chart = path_chart(points, cyc["lower_llr"], cyc["upper_llr"], decided, voids,
+                       cyc["plan_snapshot"].get("max_units"))
+    alerts = m.alerts(facility_id=facility_id, limit=20)["items"]
+    return page(request, "facility.html", user, fac=fac, cyc=cyc, records=records, chart=chart,
+                alerts=alerts, msg=msg, kind=kind, is_current=number == fac["cycle"])
+
+
+@router.post("/facilities/{facility_id}/records/{record_id:path}/void")
+def void(request: Request, facility_id: str, record_id: str, reason: str = Form(""),
+         csrf: str = Form(""), cycle: int = Form(1), user: UiUser = Depends(current_user),
+         m: Monitor = Depends(monitor)):
+    check_csrf(user, csrf)
+    target = f"/ui/facilities/{facility_id}?cycle={cycle}"
+    if not reason.strip():
+        return back(target, "A reason is required to void a record.", "error")
+    try:
+        out = m.void_record(record_id, reason.strip(), user.actor)
+    except ServiceError as exc:
+        return back(target, exc.detail, "error")
+    note = " The decision was revised." if out["decision_revised"] else ""
+    return back(target, f"Record {record_id} voided; the cycle was replayed.{note}")
+
+
+@router.post("/facilities/{facility_id}/cycles")
+def new_cycle(request: Request, facility_id: str, csrf: str = Form(""),
+              user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+    check_csrf(user, csrf)
+    try:
+        fac = m.open_cycle(facility_id, user.actor)
+    except ServiceError as exc:
+        return back(f"/ui/facilities/{facility_id}", exc.detail, "error")
+    return back(f"/ui/facilities/{facility_id}", f"Cycle {fac['cycle']} opened.")
+
+
+@router.post("/facilities/{facility_id}/close")
+def close(request: Request, facility_id: str, reason: str = Form(""), csrf: str = Form(""),
+          user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+    check_csrf(user, csrf)
+    if not reason.strip():
+        return back(f"/ui/facilities/{facility_id}", "A reason is required to close a cycle.",
+                    "error")
+    try:
+        m.close_cycle(facility_id, reason.strip(), user.actor)
+    except ServiceError as exc:
+        return back(f"/ui/facilities/{facility_id}", exc.detail, "error")
+    return back(f"/ui/facilities/{facility_id}", "Cycle closed without a decision.")
+
+
+@router.get("/facilities/{facility_id}/cycles/{cycle}/casefile.pdf")
+def casefile(facility_id: str, cycle: int, user: UiUser = Depends(current_user),
+             m: Monitor = Depends(monitor)):
+    from ..casefile import build_casefile
+    from ..casefile.pdf import render_pdf
+    pdf = render_pdf(build_casefile(m.store, facility_id, cycle))
+    safe = "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in facility_id)
+    return Response(pdf, media_type="application/pdf", headers={
+        "Content-Disposition": f'attachment; filename="casefile-{safe}-cycle{cycle}.pdf"'})
+
+
+# -- alerts ------------------------------------------------------------------------------------
+KINDS = ("flagged", "cleared", "decision_revised", "cap_reached", "stale", "delivery_failed")
+
+
+@router.get("/alerts", response_class=HTMLResponse)
+def alerts(request: Request, state: str = "open", kind: str = "", facility_id: str = "",
+           page_no: int = 1, msg: str | None = None, kind_msg: str = "ok",
+           user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+    state = state if state in ("open", "acknowledged", "all") else "open"
+    kind = kind if kind in KINDS else ""
+    page_no = max(page_no, 1)
+    listing = m.alerts(state=None if state == "all" else state, kind=kind or None,
+                       facility_id=facility_id.strip() or None, limit=PAGE,
+                       offset=(page_no - 1) * PAGE)
+    delivery = m.store.outbox_status([a["alert_id"] for a in listing["items"]])
+    query = {"state": state, "kind": kind, "facility_id": facility_id}
+    return page(request, "alerts.html", user, listing=listing, delivery=delivery, kinds=KINDS,
+                query=query, page_no=page_no,
+                pages=max(1, math.ceil(listing["total"] / PAGE)), msg=msg,
+                qs=lambda **kw: urlencode({**query, **kw}))
+
+
+@router.post("/alerts/{alert_id}/ack")
+def ack(request: Request, alert_id: int, note: str = Form(""), csrf: str = Form(""),
+        back_to: str = Form("/ui/alerts"), user: UiUser = Depends(current_user),
+        m: Monitor = Depends(monitor)):
+    check_csrf(user, csrf)
+    target = back_to if back_to.startswith("/ui/") else "/ui/alerts"
+    try:
+        m.ack_alert(alert_id, note.strip() or None, user.actor)
+    except ServiceError as exc:
+        return back(target, exc.detail, "error")
+    return back(target, f"Alert {alert_id} acknowledged.")
+
+
+# -- plan workbench ---------------------------------------------------------------------------
+@router.get("/workbench", response_class=HTMLResponse)
+def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str = "0.05",
+              beta: str = "0.10", max_units: str = "", calibrate: str = "",
+              user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+    form = {"p0": p0, "p1": p1, "alpha": alpha, "beta": beta, "max_units": max_units,
+            "calibrate": bool(calibrate)}
+    result, error, charts = None, None, None
+    if "p0" in request.query_params:
+        from ..stats import design
+        try:
+            values = {k: float(form[k]) for k in ("p0", "p1", "alpha", "beta")}
+        except ValueError:
+            error = "p0, p1, alpha and beta must be numbers, e.g. 0.02"
+        else:
+            cap = None
+            if max_units.strip():
+                try:
+                    cap = int(max_units)
+                except ValueError:
+                    error = "The cap must be a whole number of units, or empty for none."
+            if error is None:
+                try:
+                    res = design(**values, max_units=cap, calibrate=bool(calibrate))
+                    result = res.to_dict()
+                except PlanInputError as exc:
+                    error = f"{exc.argument}: {exc}"
+                except ValueError as exc:
+                    error = str(exc)
+        if result is not None:
+            p = result["plan"]
+            charts = {
+                "oc": curve_chart(result["curve"], "p_flag", "wald_p_flag",
+                                  "probability the facility is flagged", p["p0"], p["p1"],
+                                  "Operating characteristic: chance of a flag by true rate"),
+                "asn": curve_chart(result["curve"], "asn", "wald_asn",
+                                   "expected units to a decision", p["p0"], p["p1"],
+                                   "Average sample number by true rate")}
+    return page(request, "workbench.html", user, form=form, result=result, error=error,
+                charts=charts)
