@@ -54,6 +54,8 @@ class Settings:
     workers: int = 1
     max_batch: int = 1000
     max_body_bytes: int = 2_000_000
+    rate_per_s: float = 200.0                # per API key and worker; 0 turns the limit off
+    rate_burst: float = 1000.0
     future_tolerance_s: float = 86_400.0     # observed_at at most this far ahead of the clock
     plans: dict[str, PlanSpec] = field(default_factory=dict)
     schedule: ScheduleSettings = field(default_factory=ScheduleSettings)
@@ -66,7 +68,8 @@ class Settings:
 _SERVICE_KEYS = {"db": ("db_path", Path), "host": ("host", str), "port": ("port", int),
                  "workers": ("workers", int), "max_batch": ("max_batch", int),
                  "max_body_bytes": ("max_body_bytes", int),
-                 "future_tolerance_s": ("future_tolerance_s", float)}
+                 "future_tolerance_s": ("future_tolerance_s", float),
+                 "rate_per_s": ("rate_per_s", float), "rate_burst": ("rate_burst", float)}
 
 
 def _coerce(name: str, kind, value, where: str):
@@ -74,6 +77,8 @@ def _coerce(name: str, kind, value, where: str):
         out = kind(value)
     except (TypeError, ValueError):
         raise ConfigError(f"{where}: {name} must be a {kind.__name__}, got {value!r}") from None
+    if kind is float and out < 0:
+        raise ConfigError(f"{where}: {name} must be >= 0, got {value!r}")
     if kind is int and out < 1:
         raise ConfigError(f"{where}: {name} must be at least 1, got {value!r}")
     return out

@@ -3,7 +3,7 @@ from fastapi import APIRouter, Depends, Query
 from ..operations import Monitor
 from ..schemas import AckCreate, AlertKind, AlertPage, AlertPublic
 from typing import Literal
-from .deps import analyst, monitor
+from .deps import Id, Offset, analyst, monitor
 
 router = APIRouter(prefix="/v1/alerts", tags=["alerts"])
 
@@ -11,12 +11,12 @@ router = APIRouter(prefix="/v1/alerts", tags=["alerts"])
 @router.get("", response_model=AlertPage, summary="Alerts, newest first (analyst)")
 def list_alerts(state: Literal["open", "acknowledged"] | None = None,
                 kind: AlertKind | None = None, facility_id: str | None = None,
-                limit: int = Query(100, ge=1, le=1000), offset: int = Query(0, ge=0),
+                limit: int = Query(100, ge=1, le=1000), offset: Offset = 0,
                 actor=Depends(analyst), m: Monitor = Depends(monitor)):
     return m.alerts(state=state, kind=kind, facility_id=facility_id, limit=limit, offset=offset)
 
 
 @router.post("/{alert_id}/ack", response_model=AlertPublic,
              summary="Acknowledge an alert with an optional note (analyst)")
-def ack(alert_id: int, body: AckCreate, actor=Depends(analyst), m: Monitor = Depends(monitor)):
+def ack(alert_id: Id, body: AckCreate, actor=Depends(analyst), m: Monitor = Depends(monitor)):
     return m.ack_alert(alert_id, body.note, actor)

@@ -10,6 +10,7 @@ from ..clock import utc_now
 from ..operations import Monitor, PlanBook
 from ..settings import Settings, load_settings
 from ..store import Store
+from .limits import BodyLimit, TokenBuckets
 from . import actions, alerts, casefiles, facilities, health, keys, metrics, plans, problems, \
     records, webhooks
 
@@ -48,6 +49,8 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     app = FastAPI(title="seqaudit", version="0.1.0", description=DESCRIPTION, lifespan=lifespan)
     app.state.settings = settings
     app.state.monitor = monitor
+    app.state.buckets = TokenBuckets(settings.rate_per_s, settings.rate_burst)
+    app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     problems.install(app)
     from ..web.install import install_ui
     install_ui(app)

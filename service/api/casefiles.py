@@ -6,7 +6,7 @@ from ..casefile import build_casefile
 from ..casefile.pdf import render_pdf
 from ..operations import Monitor
 from ..schemas import CaseFilePublic
-from .deps import analyst, monitor
+from .deps import Id, analyst, monitor
 
 router = APIRouter(prefix="/v1/facilities", tags=["case files"])
 
@@ -15,7 +15,7 @@ Level = Query(0.95, gt=0, lt=1, description="confidence level, e.g. 0.90, 0.95, 
 
 @router.get("/{facility_id}/cycles/{cycle}/casefile.json", response_model=CaseFilePublic,
             summary="Case file of a decided cycle as JSON (analyst)")
-def casefile_json(facility_id: str, cycle: int, ci_level: float = Level,
+def casefile_json(facility_id: str, cycle: Id, ci_level: float = Level,
                   actor=Depends(analyst), m: Monitor = Depends(monitor)):
     return build_casefile(m.store, facility_id, cycle, ci_level)
 
@@ -23,7 +23,7 @@ def casefile_json(facility_id: str, cycle: int, ci_level: float = Level,
 @router.get("/{facility_id}/cycles/{cycle}/casefile.pdf", response_class=Response,
             responses={200: {"content": {"application/pdf": {}}}},
             summary="Case file of a decided cycle as PDF (analyst)")
-async def casefile_pdf(facility_id: str, cycle: int, ci_level: float = Level,
+async def casefile_pdf(facility_id: str, cycle: Id, ci_level: float = Level,
                        actor=Depends(analyst), m: Monitor = Depends(monitor)):
     cf = await run_in_threadpool(build_casefile, m.store, facility_id, cycle, ci_level)
     pdf = await run_in_threadpool(render_pdf, cf)

@@ -2,12 +2,19 @@
 from __future__ import annotations
 
 import hmac
+from typing import Annotated
 
-from fastapi import Depends, Request
+from fastapi import Depends, Path, Query, Request
 
 from ..operations import Monitor
 from ..store import hash_key
 from .problems import AuthProblem
+
+
+class RateLimited(Exception):
+    def __init__(self, wait_s: float):
+        super().__init__(f"rate limited for {wait_s:.2f} s")
+        self.wait_s = wait_s
 
 RANK = {"field": 0, "analyst": 1, "admin": 2}
 
@@ -30,6 +37,9 @@ def caller(request: Request) -> tuple[str, str]:
         raise AuthProblem(401, "this API key is not known")
     if row["revoked_at"] is not None:
         raise AuthProblem(401, f"this API key was revoked at {row['revoked_at']}")
+    wait = request.app.state.buckets.take(str(row["id"]))
+    if wait > 0:
+        raise RateLimited(wait)
     return row["label"], row["role"]
 
 
@@ -48,3 +58,10 @@ def require(minimum: str):
 field_or_above = require("field")
 analyst = require("analyst")
 admin = require("admin")
+
+
+# Numbers from URLs stay within SQLite's 64-bit integers (found by fuzzing).
+MAX_ID = 2 ** 62
+Id = Annotated[int, Path(ge=1, le=MAX_ID)]
+Offset = Annotated[int, Query(ge=0, le=MAX_ID, description="rows to skip")]
+CycleNo = Annotated[int | None, Query(ge=1, le=MAX_ID)]

@@ -5,7 +5,7 @@ from fastapi import APIRouter, Depends, Query, Response
 from ..operations import Monitor
 from ..schemas import FacilityCreate, FacilityPage, FacilityPublic, ReasonCreate, RecordList, \
     Status
-from .deps import admin, analyst, monitor
+from .deps import CycleNo, Offset, admin, analyst, monitor
 
 router = APIRouter(prefix="/v1/facilities", tags=["facilities"])
 
@@ -25,7 +25,7 @@ def register(body: FacilityCreate, response: Response, actor=Depends(admin),
 def list_facilities(status: Status | None = None, plan: str | None = None,
                     q: str | None = Query(None, max_length=100, description="id or name contains"),
                     sort: Sort = "facility_id", descending: bool = False,
-                    limit: int = Query(100, ge=1, le=1000), offset: int = Query(0, ge=0),
+                    limit: int = Query(100, ge=1, le=1000), offset: Offset = 0,
                     actor=Depends(analyst), m: Monitor = Depends(monitor)):
     return m.facilities(status=status, plan=plan, search=q, sort=sort, descending=descending,
                         limit=limit, offset=offset)
@@ -39,7 +39,7 @@ def get_facility(facility_id: str, actor=Depends(analyst), m: Monitor = Depends(
 
 @router.get("/{facility_id}/records", response_model=RecordList,
             summary="Records of a cycle in evidence order, with the LLR after each (analyst)")
-def records(facility_id: str, cycle: int | None = Query(None, ge=1), actor=Depends(analyst),
+def records(facility_id: str, cycle: CycleNo = None, actor=Depends(analyst),
             m: Monitor = Depends(monitor)):
     return m.records(facility_id, cycle)
 

@@ -2,7 +2,7 @@ from fastapi import APIRouter, Depends
 
 from ..operations import Monitor
 from ..schemas import KeyCreate, KeyCreated, KeyPublic
-from .deps import admin, monitor
+from .deps import Id, admin, monitor
 
 router = APIRouter(prefix="/v1/keys", tags=["keys"])
 
@@ -20,5 +20,5 @@ def list_keys(actor=Depends(admin), m: Monitor = Depends(monitor)):
 
 
 @router.post("/{key_id}/revoke", response_model=KeyPublic, summary="Revoke an API key (admin)")
-def revoke_key(key_id: int, actor=Depends(admin), m: Monitor = Depends(monitor)):
+def revoke_key(key_id: Id, actor=Depends(admin), m: Monitor = Depends(monitor)):
     return m.store.revoke_key(key_id, m.clock(), actor)

@@ -51,6 +51,15 @@ def install(app: FastAPI) -> None:
         headers = {"WWW-Authenticate": 'Bearer realm="seqaudit"'} if exc.status == 401 else None
         return problem(request, exc.status, exc.detail, headers=headers)
 
+    from .deps import RateLimited
+    from .limits import retry_after
+
+    @app.exception_handler(RateLimited)
+    async def _rate(request: Request, exc: RateLimited):
+        wait = retry_after(exc.wait_s)
+        return problem(request, 429, f"too many requests with this key; retry after {wait} s",
+                       headers={"Retry-After": wait})
+
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError):
         errors = []

@@ -3,7 +3,7 @@ import json
 from fastapi import APIRouter, Depends, Request
 from fastapi.responses import JSONResponse
 
-from ..errors import Invalid, TooLarge
+from ..errors import Invalid
 from ..operations import Monitor
 from ..schemas import IngestReport, IngestResult, ReasonCreate, RecordBatchCreate, RecordCreate, \
     VoidResult
@@ -22,10 +22,7 @@ _BODY = {"requestBody": {"required": True, "content": {"application/json": {"sch
                               "description": "a duplicate of a stored record, or a batch report"}})
 async def post_records(request: Request, actor=Depends(field_or_above),
                        m: Monitor = Depends(monitor)):
-    raw = await request.body()
-    limit = request.app.state.settings.max_body_bytes
-    if len(raw) > limit:
-        raise TooLarge(f"the body is {len(raw)} bytes; at most {limit} are accepted")
+    raw = await request.body()   # the BodyLimit middleware has capped its size
     try:
         payload = json.loads(raw)
     except (UnicodeDecodeError, json.JSONDecodeError) as exc:

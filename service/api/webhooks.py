@@ -3,7 +3,7 @@ from fastapi import APIRouter, Depends, Query
 from ..operations import Monitor
 from ..schemas import DeliveryPage, DeliveryPublic, WebhookCreate, WebhookCreated, WebhookPublic
 from ..webhooks import new_secret
-from .deps import admin, monitor
+from .deps import Id, Offset, admin, monitor
 
 router = APIRouter(prefix="/v1/webhooks", tags=["webhooks"])
 
@@ -23,13 +23,13 @@ def list_hooks(actor=Depends(admin), m: Monitor = Depends(monitor)):
 
 @router.delete("/{hook_id}", response_model=WebhookPublic,
                summary="Stop a subscription; pending deliveries are cancelled (admin)")
-def delete_hook(hook_id: int, actor=Depends(admin), m: Monitor = Depends(monitor)):
+def delete_hook(hook_id: Id, actor=Depends(admin), m: Monitor = Depends(monitor)):
     return m.store.disable_webhook(hook_id, "deleted by admin", m.clock(), actor)
 
 
 @router.get("/{hook_id}/deliveries", response_model=DeliveryPage,
             summary="Deliveries of a subscription with every attempt (admin)")
-def deliveries(hook_id: int, limit: int = Query(100, ge=1, le=1000), offset: int = Query(0, ge=0),
+def deliveries(hook_id: Id, limit: int = Query(100, ge=1, le=1000), offset: Offset = 0,
                actor=Depends(admin), m: Monitor = Depends(monitor)):
     rows, total = m.store.deliveries(hook_id, limit, offset)
     return {"items": rows, "total": total, "limit": limit, "offset": offset}
@@ -37,5 +37,5 @@ def deliveries(hook_id: int, limit: int = Query(100, ge=1, le=1000), offset: int
 
 @router.post("/{hook_id}/deliveries/{delivery_id}/retry", status_code=202,
              response_model=DeliveryPublic, summary="Send a delivery again now (admin)")
-def retry(hook_id: int, delivery_id: int, actor=Depends(admin), m: Monitor = Depends(monitor)):
+def retry(hook_id: Id, delivery_id: Id, actor=Depends(admin), m: Monitor = Depends(monitor)):
     return m.store.retry_delivery(hook_id, delivery_id, m.clock(), actor)
