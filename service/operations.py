@@ -10,9 +10,9 @@ import threading
 from dataclasses import dataclass
 from typing import Any, Callable
 
-from pydantic import ValidationError
+from pydantic import TypeAdapter, ValidationError
 
-from .clock import format_time, parse_rfc3339, utc_now
+from .clock import normalize_rfc3339, parse_rfc3339, utc_now
 from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
 from .schemas import FacilityCreate, RecordCreate
@@ -21,6 +21,7 @@ from .stats.calibrate import calibrate
 from .store import RecordIn, Store
 
 Actor = tuple[str, str]   # (key label, role)
+_RECORDS = TypeAdapter(list[RecordCreate])
 
 
 def validation_errors(exc: ValidationError, prefix: str = "") -> list[dict]:
@@ -162,11 +163,14 @@ class Monitor:
 
     # -- records -----------------------------------------------------------------
     def _record_in(self, rec: RecordCreate, now_dt) -> RecordIn:
-        moment = parse_rfc3339(rec.observed_at)
+        try:
+            moment, utc_text = normalize_rfc3339(rec.observed_at)
+        except ValueError as exc:
+            raise Invalid(f"observed_at {exc}", field="observed_at") from None
         if (moment - now_dt).total_seconds() > self.future_tolerance_s:
             raise Invalid(f"observed_at {rec.observed_at} lies in the future", field="observed_at")
         return RecordIn(record_id=rec.record_id, facility_id=rec.facility_id,
-                        observed_at=rec.observed_at, observed_utc=format_time(moment),
+                        observed_at=rec.observed_at, observed_utc=utc_text,
                         units=rec.units, nonconforming=rec.nonconforming, unit_ref=rec.unit_ref,
                         inspector=rec.inspector, note=rec.note)
 
@@ -196,9 +200,19 @@ class Monitor:
         results: list[dict | None] = [None] * len(items)
         valid: list[RecordIn] = []
         where: list[int] = []
+        # One validation call for the whole batch; only if it fails is each record checked
+        # alone, so that every bad record is reported by itself.
+        try:
+            checked = _RECORDS.validate_python(items)
+        except ValidationError:
+            checked = None
         for i, raw in enumerate(items):
             prefix = f"records.{i}." if batch else ""
             try:
+                if checked is not None:
+                    valid.append(self._record_in(checked[i], now_dt))
+                    where.append(i)
+                    continue
                 if not isinstance(raw, dict):
                     raise Invalid("a record must be a JSON object", field=prefix.rstrip(".") or "body")
                 valid.append(self._record_in(RecordCreate.model_validate(raw), now_dt))

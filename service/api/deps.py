@@ -19,11 +19,13 @@ class RateLimited(Exception):
 RANK = {"field": 0, "analyst": 1, "admin": 2}
 
 
-def monitor(request: Request) -> Monitor:
+# Dependencies are async: they only read memory or one indexed row, and a sync dependency
+# would cost a thread hop on every request.
+async def monitor(request: Request) -> Monitor:
     return request.app.state.monitor
 
 
-def caller(request: Request) -> tuple[str, str]:
+async def caller(request: Request) -> tuple[str, str]:
     """(label, role) of the key in ``Authorization: Bearer KEY``; 401 otherwise."""
     header = request.headers.get("authorization")
     if not header:
@@ -46,7 +48,7 @@ def caller(request: Request) -> tuple[str, str]:
 def require(minimum: str):
     """Dependency: the caller's role ranks at least ``minimum``; 403 otherwise."""
 
-    def check(actor: tuple[str, str] = Depends(caller)) -> tuple[str, str]:
+    async def check(actor: tuple[str, str] = Depends(caller)) -> tuple[str, str]:
         if RANK[actor[1]] < RANK[minimum]:
             raise AuthProblem(403, f"this needs a key with role {minimum} or higher; "
                                    f"this key's role is {actor[1]}")

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
+from functools import cached_property
 
 import numpy as np
 
@@ -111,20 +112,20 @@ class SprtPlan:
         return replace(self, upper_llr=float(upper_llr), lower_llr=float(lower_llr))
 
     # -- the LLR per unit -------------------------------------------------
-    @property
+    @cached_property
     def g1(self) -> float:
         """LLR added by a nonconforming unit, ln(p1/p0)."""
         return math.log(self.p1 / self.p0)
 
-    @property
+    @cached_property
     def g2(self) -> float:
         """LLR removed by a conforming unit, ln((1-p0)/(1-p1))."""
         return math.log((1.0 - self.p0) / (1.0 - self.p1))
 
     def llr(self, n, d):
         """LLR after ``n`` units with ``d`` nonconforming, from the counts."""
-        g1, g2 = self.g1, self.g2
-        return d * (g1 + g2) - n * g2
+        g2 = self.g2
+        return d * (self.g1 + g2) - n * g2
 
     # -- the same plan in the (n, d) plane ---------------------------------
     @property

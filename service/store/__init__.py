@@ -56,9 +56,10 @@ class RecordIn:
     note: str | None = None
 
     def content_hash(self) -> str:
-        body = json.dumps([self.facility_id, self.observed_utc, self.units, self.nonconforming,
-                           self.unit_ref, self.inspector, self.note], separators=(",", ":"))
-        return hashlib.sha256(body.encode("utf-8")).hexdigest()
+        # repr of a tuple of str/int/None is unambiguous and much faster than json.dumps
+        body = repr((self.facility_id, self.observed_utc, self.units, self.nonconforming,
+                     self.unit_ref, self.inspector, self.note))
+        return hashlib.sha256(body.encode("utf-8", "surrogatepass")).hexdigest()
 
 
 @dataclass(frozen=True)
@@ -90,6 +91,7 @@ class Store(OutboxMixin, SessionMixin):
         self.path = Path(path)
         self.path.parent.mkdir(parents=True, exist_ok=True)
         self._local = threading.local()
+        self._writer = threading.Lock()
 
     # -- connections and transactions ------------------------------------
     def _conn(self) -> sqlite3.Connection:
@@ -105,15 +107,21 @@ class Store(OutboxMixin, SessionMixin):
 
     @contextmanager
     def write(self):
-        """One write transaction; the write lock is taken at BEGIN."""
+        """One write transaction; the write lock is taken at BEGIN.
+
+        Threads of this process queue on a lock first: SQLite's own busy handler sleeps in
+        steps of milliseconds, which would waste most of the time when several request
+        threads want to write at once. Other processes still wait on busy_timeout.
+        """
         conn = self._conn()
-        conn.execute("BEGIN IMMEDIATE")
-        try:
-            yield conn
-        except BaseException:
-            conn.execute("ROLLBACK")
-            raise
-        conn.execute("COMMIT")
+        with self._writer:
+            conn.execute("BEGIN IMMEDIATE")
+            try:
+                yield conn
+            except BaseException:
+                conn.execute("ROLLBACK")
+                raise
+            conn.execute("COMMIT")
 
     def read(self, sql: str, params=()) -> list[dict]:
         return _rows(self._conn().execute(sql, params))

@@ -41,19 +41,36 @@ def error_page(request: Request, status: int, title: str, detail: str):
                                        "detail": detail}, status_code=status)
 
 
+class SecurityHeaders:
+    """Pure ASGI middleware adding the UI headers to /ui responses (no per-request task)."""
+
+    def __init__(self, app):
+        self.app = app
+
+    async def __call__(self, scope, receive, send):
+        path = scope.get("path", "") if scope["type"] == "http" else ""
+        if not (path == "/ui" or path.startswith("/ui/")):
+            await self.app(scope, receive, send)
+            return
+        static = path.startswith("/ui/static/")
+        extra = [(k.lower().encode(), v.encode()) for k, v in UI_HEADERS.items()
+                 if not (static and k == "Cache-Control")]
+
+        async def add_headers(message):
+            if message["type"] == "http.response.start":
+                have = {k.lower() for k, _ in message.get("headers", [])}
+                message = {**message, "headers": list(message.get("headers", []))
+                           + [(k, v) for k, v in extra if k not in have]}
+            await send(message)
+
+        await self.app(scope, receive, add_headers)
+
+
 def install_ui(app: FastAPI) -> None:
     app.include_router(router)
     app.mount("/ui/static", StaticFiles(directory=str(STATIC)), name="ui-static")
 
-    @app.middleware("http")
-    async def security_headers(request: Request, call_next):
-        response = await call_next(request)
-        if _is_ui(request):
-            for name, value in UI_HEADERS.items():
-                if name == "Cache-Control" and request.url.path.startswith("/ui/static/"):
-                    continue
-                response.headers.setdefault(name, value)
-        return response
+    app.add_middleware(SecurityHeaders)
 
     @app.exception_handler(SignInRequired)
     async def _signin(request: Request, exc: SignInRequired):

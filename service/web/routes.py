@@ -30,7 +30,7 @@ templates.env.globals["status_text"] = STATUS_TEXT
 PAGE = 50
 
 
-def monitor(request: Request) -> Monitor:
+async def monitor(request: Request) -> Monitor:
     return request.app.state.monitor
 
 
