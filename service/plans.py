@@ -58,15 +58,20 @@ def plan_from_table(name: str, table: dict, source: str = "config") -> PlanSpec:
     return spec
 
 
-def load_plans(path: str | Path) -> dict[str, PlanSpec]:
-    """Read every [plans.NAME] table of a TOML file, checking each."""
-    path = Path(path)
+def read_toml(path: Path) -> dict:
+    """The TOML file as a dict, or ConfigError saying what is wrong with it."""
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
+        return tomllib.loads(Path(path).read_text(encoding="utf-8"))
     except FileNotFoundError:
         raise ConfigError(f"configuration file {path} does not exist") from None
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+
+
+def load_plans(path: str | Path) -> dict[str, PlanSpec]:
+    """Read every [plans.NAME] table of a TOML file, checking each."""
+    path = Path(path)
+    data = read_toml(path)
     tables = data.get("plans", {})
     if not isinstance(tables, dict):
         raise ConfigError(f"{path}: 'plans' must be a table of [plans.NAME] tables")

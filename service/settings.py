@@ -6,11 +6,10 @@ a :class:`Settings` object down.
 from __future__ import annotations
 
 import os
-import tomllib
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 
-from .plans import ConfigError, PlanSpec, load_plans
+from .plans import ConfigError, PlanSpec, load_plans, read_toml
 
 PROJECT_ROOT = Path(__file__).resolve().parent.parent
 DEFAULT_CONFIG = PROJECT_ROOT / "config" / "seqaudit.toml"
@@ -115,12 +114,7 @@ def load_settings(config_path: str | Path | None = None, environ=None, **overrid
     """Build settings from the config file, the environment and explicit overrides."""
     env = os.environ if environ is None else environ
     path = Path(config_path or env.get(ENV_PREFIX + "CONFIG") or DEFAULT_CONFIG)
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise ConfigError(f"configuration file {path} does not exist") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+    data = read_toml(path)
     values: dict = {"config_path": path, "plans": load_plans(path)}
     section = data.get("service", {})
     unknown = set(section) - set(_SERVICE_KEYS)

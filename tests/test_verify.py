@@ -52,3 +52,16 @@ def test_verify_command_finds_a_tampered_state(client, keys, app):
     assert [m["facility_id"] for m in report.mismatches] == [fids[1]]
     out = run("verify", "--db", str(db))
     assert out.returncode == 1 and "1 cycle(s) differ" in out.stdout
+
+
+def test_wide_numbers_take_the_two_column_path(client, keys, app, monkeypatch):
+    import service.verify as v
+    fid = new_facility(client, keys)
+    for i in range(6):
+        client.post("/v1/records", json=record(fid, f"{fid}-{i}", int(i == 1), units=3),
+                    headers=keys.header("field"))
+    db = app.state.settings.db_path
+    fast = verify_database(Store(db))
+    monkeypatch.setattr(v, "_N_BITS", 1)       # units of 3 no longer fit: fall back
+    slow = verify_database(Store(db))
+    assert fast.ok and slow.ok and fast.records == slow.records == 6

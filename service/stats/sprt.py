@@ -159,22 +159,20 @@ class SprtPlan:
 
     def rejection_numbers(self, n):
         """Smallest d at which n units flag (LLR >= a), or n + 1 where none can."""
-        n = np.asarray(n, dtype=np.int64)
-        G, g2 = self.g1 + self.g2, self.g2
-        lim = self.upper_llr - BOUNDARY_TOL
-        d = np.ceil((lim + n * g2) / G).astype(np.int64)
-        d = np.where(d * G - n * g2 < lim, d + 1, d)
-        d = np.where((d - 1) * G - n * g2 >= lim, d - 1, d)
-        return np.clip(d, 0, n + 1)
+        return self._first_count_reaching(n, self.upper_llr)
 
     def cut_numbers(self, n):
         """Smallest d with LLR(n, d) >= cut_llr (the flag rule at the cap)."""
+        return self._first_count_reaching(n, self.cut_llr)
+
+    def _first_count_reaching(self, n, level: float):
+        """Smallest d with LLR(n, d) >= level (within the tolerance), clipped to [0, n + 1]."""
         n = np.asarray(n, dtype=np.int64)
         G, g2 = self.g1 + self.g2, self.g2
-        lim = self.cut_llr - BOUNDARY_TOL
+        lim = level - BOUNDARY_TOL
         d = np.ceil((lim + n * g2) / G).astype(np.int64)
-        d = np.where(d * G - n * g2 < lim, d + 1, d)
-        d = np.where((d - 1) * G - n * g2 >= lim, d - 1, d)
+        d = np.where(d * G - n * g2 < lim, d + 1, d)          # rounding down by the ceil
+        d = np.where((d - 1) * G - n * g2 >= lim, d - 1, d)   # rounding up
         return np.clip(d, 0, n + 1)
 
     # -- the decision --------------------------------------------------------

@@ -73,6 +73,22 @@ class IngestOutcome:
     field: str | None = None
 
 
+class _Job:
+    """One caller's records waiting for a group commit."""
+
+    def __init__(self, items, key_label, now, rejected_before):
+        self.items, self.key_label, self.now = items, key_label, now
+        self.rejected_before = rejected_before
+        self.outcomes: list[IngestOutcome] | None = None
+        self.error: Exception | None = None
+        self.done = False
+
+    def result(self) -> list[IngestOutcome]:
+        if self.error is not None:
+            raise self.error
+        return self.outcomes
+
+
 def _state_of(row: dict) -> CycleState:
     return CycleState(status=row["status"], units=row["units"], nonconforming=row["nonconforming"],
                       decided_seq=row["decided_seq"], decided_after_units=row["decided_after_units"],
@@ -92,6 +108,8 @@ class Store(OutboxMixin, SessionMixin):
         self.path.parent.mkdir(parents=True, exist_ok=True)
         self._local = threading.local()
         self._writer = threading.Lock()
+        self._queue_lock = threading.Lock()
+        self._queue: list[_Job] = []
 
     # -- connections and transactions ------------------------------------
     def _conn(self) -> sqlite3.Connection:
@@ -113,15 +131,20 @@ class Store(OutboxMixin, SessionMixin):
         steps of milliseconds, which would waste most of the time when several request
         threads want to write at once. Other processes still wait on busy_timeout.
         """
+        with self._writer, self._transaction() as conn:
+            yield conn
+
+    @contextmanager
+    def _transaction(self):
+        """BEGIN IMMEDIATE ... COMMIT on this thread's connection; the caller holds _writer."""
         conn = self._conn()
-        with self._writer:
-            conn.execute("BEGIN IMMEDIATE")
-            try:
-                yield conn
-            except BaseException:
-                conn.execute("ROLLBACK")
-                raise
-            conn.execute("COMMIT")
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            yield conn
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+        conn.execute("COMMIT")
 
     def read(self, sql: str, params=()) -> list[dict]:
         return _rows(self._conn().execute(sql, params))
@@ -159,16 +182,18 @@ class Store(OutboxMixin, SessionMixin):
                       json.dumps(detail, sort_keys=True)))
 
     def actions(self, limit=100, offset=0, facility_id=None, cycle=None) -> tuple[list[dict], int]:
-        where, params = [], []
-        if facility_id is not None:
-            where.append("facility_id = ?")
-            params.append(facility_id)
-        if cycle is not None:
-            where.append("cycle = ?")
-            params.append(cycle)
+        return self._page("actions", "id", {"facility_id": facility_id, "cycle": cycle},
+                          limit, offset)
+
+    def _page(self, table: str, order: str, equal: dict, limit: int, offset: int
+              ) -> tuple[list[dict], int]:
+        """Rows of a table whose columns equal the given values (None: any), one page,
+        with their JSON ``detail`` decoded, and the total count."""
+        where = [f"{column} = ?" for column, value in equal.items() if value is not None]
+        params = [value for value in equal.values() if value is not None]
         clause = f"WHERE {' AND '.join(where)}" if where else ""
-        total = self.read(f"SELECT COUNT(*) AS n FROM actions {clause}", params)[0]["n"]
-        rows = self.read(f"SELECT * FROM actions {clause} ORDER BY id LIMIT ? OFFSET ?",
+        total = self.read(f"SELECT COUNT(*) AS n FROM {table} {clause}", params)[0]["n"]
+        rows = self.read(f"SELECT * FROM {table} {clause} ORDER BY {order} LIMIT ? OFFSET ?",
                          [*params, limit, offset])
         for r in rows:
             r["detail"] = json.loads(r["detail"])
@@ -354,89 +379,120 @@ class Store(OutboxMixin, SessionMixin):
     # -- records -------------------------------------------------------------
     def ingest(self, items: list[RecordIn], key_label: str | None, now: str,
                rejected_before: int = 0) -> list[IngestOutcome]:
-        """Store a batch of validated records in one transaction.
+        """Store a batch of validated records durably; returns one outcome per record.
 
         Per record: a new id is evidence for the facility's current cycle (or a
         post-decision record if the cycle has stopped); the same id with the same
         content is a duplicate and is not counted again; the same id with other
         content is a conflict. ``rejected_before`` counts records of the request
         that failed validation, for the metrics.
+
+        Group commit: requests that arrive while another is committing wait in a queue,
+        and the next thread to get the write lock commits all of them in one transaction
+        (one fsync). Each caller returns only after its records are committed.
         """
+        job = _Job(items, key_label, now, rejected_before)
+        with self._queue_lock:
+            self._queue.append(job)
+        with self._writer:
+            if job.done:
+                return job.result()
+            with self._queue_lock:
+                jobs, self._queue = self._queue, []
+            try:
+                with self._transaction() as conn:
+                    for j in jobs:
+                        j.outcomes = self._ingest_tx(conn, j)
+            except Exception:
+                # something failed: commit each job alone, so one cannot sink the others
+                for j in jobs:
+                    try:
+                        with self._transaction() as conn:
+                            j.outcomes = self._ingest_tx(conn, j)
+                    except Exception as exc:  # reported to that job's caller only
+                        j.error = exc
+            for j in jobs:
+                j.done = True
+        return job.result()
+
+    def _ingest_tx(self, conn, job: "_Job") -> list[IngestOutcome]:
+        items, key_label, now, rejected_before = (job.items, job.key_label, job.now,
+                                                  job.rejected_before)
         outcomes: list[IngestOutcome] = []
-        with self.write() as conn:
-            ids = list({it.record_id for it in items})
-            known: dict[str, tuple[str, int, str]] = {}
-            for i in range(0, len(ids), _IN_CHUNK):
-                part = ids[i:i + _IN_CHUNK]
-                marks = ",".join("?" * len(part))
-                for rid, h, seq, fid in conn.execute(
-                        f"SELECT record_id, content_hash, seq, facility_id FROM records "
-                        f"WHERE record_id IN ({marks})", part):
-                    known[rid] = (h, seq, fid)
-            fids = list({it.facility_id for it in items})
-            cycles: dict[str, dict] = {}
-            for i in range(0, len(fids), _IN_CHUNK):
-                part = fids[i:i + _IN_CHUNK]
-                marks = ",".join("?" * len(part))
-                cur = conn.execute(
-                    "SELECT c.* FROM facilities f JOIN cycles c ON c.facility_id = f.facility_id "
-                    f"AND c.cycle = f.current_cycle WHERE f.facility_id IN ({marks})", part)
-                for row in _rows(cur):
-                    row["_plan"] = plan_from_snapshot(json.loads(row["plan_json"]))
-                    row["_state"] = _state_of(row)
-                    row["_touched"] = False
-                    cycles[row["facility_id"]] = row
-            seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
-            inserts, alerts = [], []
-            accepted = duplicates = rejected = 0
-            for index, it in enumerate(items):
-                h = it.content_hash()
-                if it.record_id in known:
-                    old_hash, old_seq, old_fid = known[it.record_id]
-                    if old_hash == h:
-                        duplicates += 1
-                        outcomes.append(IngestOutcome(index, it.record_id, "duplicate", old_seq,
-                                                      old_fid))
-                    else:
-                        rejected += 1
-                        outcomes.append(IngestOutcome(
-                            index, it.record_id, "conflict", old_seq, old_fid, field="record_id",
-                            detail=f"record_id {it.record_id!r} was already used for a record "
-                                   "with different content; use a new record_id for a new record"))
-                    continue
-                cyc = cycles.get(it.facility_id)
-                if cyc is None:
+        # one write transaction, held by the caller
+        ids = list({it.record_id for it in items})
+        known: dict[str, tuple[str, int, str]] = {}
+        for i in range(0, len(ids), _IN_CHUNK):
+            part = ids[i:i + _IN_CHUNK]
+            marks = ",".join("?" * len(part))
+            for rid, h, seq, fid in conn.execute(
+                    f"SELECT record_id, content_hash, seq, facility_id FROM records "
+                    f"WHERE record_id IN ({marks})", part):
+                known[rid] = (h, seq, fid)
+        fids = list({it.facility_id for it in items})
+        cycles: dict[str, dict] = {}
+        for i in range(0, len(fids), _IN_CHUNK):
+            part = fids[i:i + _IN_CHUNK]
+            marks = ",".join("?" * len(part))
+            cur = conn.execute(
+                "SELECT c.* FROM facilities f JOIN cycles c ON c.facility_id = f.facility_id "
+                f"AND c.cycle = f.current_cycle WHERE f.facility_id IN ({marks})", part)
+            for row in _rows(cur):
+                row["_plan"] = plan_from_snapshot(json.loads(row["plan_json"]))
+                row["_state"] = _state_of(row)
+                row["_touched"] = False
+                cycles[row["facility_id"]] = row
+        seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
+        inserts, alerts = [], []
+        accepted = duplicates = rejected = 0
+        for index, it in enumerate(items):
+            h = it.content_hash()
+            if it.record_id in known:
+                old_hash, old_seq, old_fid = known[it.record_id]
+                if old_hash == h:
+                    duplicates += 1
+                    outcomes.append(IngestOutcome(index, it.record_id, "duplicate", old_seq,
+                                                  old_fid))
+                else:
                     rejected += 1
                     outcomes.append(IngestOutcome(
-                        index, it.record_id, "invalid", field="facility_id",
-                        detail=f"no facility {it.facility_id!r} is registered"))
-                    continue
-                seq += 1
-                state, decision, counted = apply_record(
-                    cyc["_plan"], cyc["_state"], Evidence(seq, it.units, it.nonconforming, now))
-                cyc["_state"], cyc["_touched"] = state, True
-                cyc["record_count"] += 1
-                cyc["last_record_at"] = now
-                inserts.append((seq, it.record_id, it.facility_id, cyc["cycle"], it.observed_at,
-                                it.observed_utc, now, it.units, it.nonconforming, it.unit_ref,
-                                it.inspector, it.note, h, int(counted), key_label))
-                known[it.record_id] = (h, seq, it.facility_id)
-                if decision is not None:
-                    alerts += self._decision_alerts(cyc, state, it.record_id, now)
-                accepted += 1
-                outcomes.append(IngestOutcome(index, it.record_id, "accepted", seq, it.facility_id))
-            conn.executemany(
-                "INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, observed_utc, "
-                "received_at, units, nonconforming, unit_ref, inspector, note, content_hash, "
-                "counted, key_label, void) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0)",
-                inserts)
-            for cyc in cycles.values():
-                if cyc["_touched"]:
-                    self._write_state(conn, cyc, cyc["_state"])
-            self._insert_alerts(conn, alerts)
-            self._bump(conn, "records_accepted", accepted)
-            self._bump(conn, "records_duplicate", duplicates)
-            self._bump(conn, "records_rejected", rejected + rejected_before)
+                        index, it.record_id, "conflict", old_seq, old_fid, field="record_id",
+                        detail=f"record_id {it.record_id!r} was already used for a record "
+                               "with different content; use a new record_id for a new record"))
+                continue
+            cyc = cycles.get(it.facility_id)
+            if cyc is None:
+                rejected += 1
+                outcomes.append(IngestOutcome(
+                    index, it.record_id, "invalid", field="facility_id",
+                    detail=f"no facility {it.facility_id!r} is registered"))
+                continue
+            seq += 1
+            state, decision, counted = apply_record(
+                cyc["_plan"], cyc["_state"], Evidence(seq, it.units, it.nonconforming, now))
+            cyc["_state"], cyc["_touched"] = state, True
+            cyc["record_count"] += 1
+            cyc["last_record_at"] = now
+            inserts.append((seq, it.record_id, it.facility_id, cyc["cycle"], it.observed_at,
+                            it.observed_utc, now, it.units, it.nonconforming, it.unit_ref,
+                            it.inspector, it.note, h, int(counted), key_label))
+            known[it.record_id] = (h, seq, it.facility_id)
+            if decision is not None:
+                alerts += self._decision_alerts(cyc, state, it.record_id, now)
+            accepted += 1
+            outcomes.append(IngestOutcome(index, it.record_id, "accepted", seq, it.facility_id))
+        conn.executemany(
+            "INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, observed_utc, "
+            "received_at, units, nonconforming, unit_ref, inspector, note, content_hash, "
+            "counted, key_label, void) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0)",
+            inserts)
+        for cyc in cycles.values():
+            if cyc["_touched"]:
+                self._write_state(conn, cyc, cyc["_state"])
+        self._insert_alerts(conn, alerts)
+        self._bump(conn, "records_accepted", accepted)
+        self._bump(conn, "records_duplicate", duplicates)
+        self._bump(conn, "records_rejected", rejected + rejected_before)
         return outcomes
 
     @staticmethod
@@ -560,18 +616,9 @@ class Store(OutboxMixin, SessionMixin):
     # -- alerts --------------------------------------------------------------
     def alerts(self, state=None, kind=None, facility_id=None, limit=100,
                offset=0) -> tuple[list[dict], int]:
-        where, params = [], []
-        for column, value in (("state", state), ("kind", kind), ("facility_id", facility_id)):
-            if value is not None:
-                where.append(f"{column} = ?")
-                params.append(value)
-        clause = f"WHERE {' AND '.join(where)}" if where else ""
-        total = self.read(f"SELECT COUNT(*) AS n FROM alerts {clause}", params)[0]["n"]
-        rows = self.read(f"SELECT * FROM alerts {clause} ORDER BY alert_id DESC LIMIT ? OFFSET ?",
-                         [*params, limit, offset])
-        for r in rows:
-            r["detail"] = json.loads(r["detail"])
-        return rows, total
+        return self._page("alerts", "alert_id DESC",
+                          {"state": state, "kind": kind, "facility_id": facility_id},
+                          limit, offset)
 
     def alert(self, alert_id: int) -> dict:
         rows = self.read("SELECT * FROM alerts WHERE alert_id = ?", (alert_id,))
