@@ -150,3 +150,11 @@ def test_workbench_reports_bad_input(ui):
     from service.stats import design   # the page shows the engine's own figure
     alpha = design(0.01, 0.1, 0.05, 0.1, max_units=100).to_dict()["exact"]["alpha"]
     assert f'id="exact-alpha">{alpha:.5f}<' in r.text
+
+
+def test_bad_query_values_give_an_html_page(ui):
+    r = ui.get("/ui/overview", params={"page_no": "abc"})
+    assert r.status_code == 422 and "text/html" in r.headers["content-type"]
+    assert "page_no" in r.text
+    api = ui.get("/v1/facilities?limit=abc")          # the API keeps problem+json
+    assert api.headers["content-type"].startswith("application/problem+json")

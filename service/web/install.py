@@ -4,6 +4,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
 from fastapi.responses import RedirectResponse
 from fastapi.staticfiles import StaticFiles
 from starlette.exceptions import HTTPException as StarletteHTTPException
@@ -85,6 +86,16 @@ def install_ui(app: FastAPI) -> None:
     # API errors stay problem+json; on /ui the same errors become pages.
     api_service = app.exception_handlers[ServiceError]
     api_http = app.exception_handlers[StarletteHTTPException]
+    api_validation = app.exception_handlers[RequestValidationError]
+
+    @app.exception_handler(RequestValidationError)
+    async def _validation(request: Request, exc: RequestValidationError):
+        if _is_ui(request):
+            fields = ", ".join(".".join(str(p) for p in e.get("loc", ())[1:]) or "input"
+                               for e in exc.errors())
+            return error_page(request, 422, "Request refused",
+                              f"These values could not be read: {fields}.")
+        return await api_validation(request, exc)
 
     @app.exception_handler(ServiceError)
     async def _service(request: Request, exc: ServiceError):
