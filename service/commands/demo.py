@@ -29,6 +29,7 @@ def seed(settings: Settings, keys_file: Path) -> dict:
         if a["plan"] in settings.plans:
             monitor.register_facility(FacilityCreate(facility_id=a["facility_id"], name=a["name"],
                                                      plan=a["plan"]), actor)
+    _seed_history(monitor, actor)
     keys = {}
     for role in ("field", "analyst", "admin"):
         _, key = store.add_key(role, f"demo {role}", utc_now())
@@ -37,6 +38,26 @@ def seed(settings: Settings, keys_file: Path) -> dict:
     keys_file.write_text(json.dumps(keys, indent=2))
     keys_file.chmod(0o600)
     return keys
+
+
+def _seed_history(monitor: Monitor, actor, per_agency: int = 40, seed_value: int = 11) -> None:
+    """Earlier re-checks, so that the demo opens with some decisions already made."""
+    from datetime import datetime, timedelta, timezone
+
+    from ..clock import format_time
+
+    rng = np.random.default_rng(seed_value)
+    start = datetime.now(timezone.utc) - timedelta(days=30)
+    batch = []
+    for i in range(per_agency):
+        for a in agencies():
+            when = start + timedelta(hours=int(rng.integers(0, 24 * 29)))
+            batch.append({"record_id": f"hist-{a['facility_id']}-{i}",
+                          "facility_id": a["facility_id"], "observed_at": format_time(when),
+                          "units": 1, "nonconforming": int(rng.random() < a["true_rate"]),
+                          "inspector": INSPECTORS[int(rng.integers(len(INSPECTORS)))]})
+    for k in range(0, len(batch), 500):
+        monitor.post_records({"records": batch[k:k + 500]}, actor, with_state=False)
 
 
 def feed(base_url: str, key: str, seconds: float, rate: float, seed_value: int = 7,
