@@ -34,8 +34,9 @@ from .sprt import SprtPlan
 RESIDUAL_TOL = 1e-12
 #: Safety stop for plans whose open mass decays too slowly; the residual
 #: left at that point is reported, never hidden.
-MAX_STEPS = 200_000
+MAX_STEPS = 1_000_000
 _BLOCK = 4096
+_CHUNK_CELLS = 4_000_000   # rates x stop points evaluated at once (32 MB of float64)
 _CHECK_EVERY = 64
 
 
@@ -177,14 +178,24 @@ class PathCounts:
         ns, ds, ks = self.points(flag)
         return ns, np.exp(ks + _log_weight(ns, ds, p))
 
+    def _totals(self, flag: bool, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(sum of P, sum of n P) over the stop points, in chunks so memory stays bounded."""
+        ns, ds, ks = self.points(flag)
+        prob, units = np.zeros(p.size), np.zeros(p.size)
+        step = max(1, _CHUNK_CELLS // max(p.size, 1))
+        for a in range(0, ns.size, step):
+            mass = np.exp(ks[a:a + step] + _log_weight(ns[a:a + step], ds[a:a + step], p))
+            prob += mass.sum(axis=1)
+            units += mass @ ns[a:a + step]
+        return prob, units
+
     def summary(self, p, residual_tol: float = RESIDUAL_TOL) -> "ExactSummary":
         """P(flag), P(clear), E[N] and residual at each rate, without per-n arrays."""
         p = _rates(p)
         self.advance_until(p, residual_tol)
-        nf, mf = self._mass(True, p)
-        nc, mc = self._mass(False, p)
-        return ExactSummary(p=p, p_flag=mf.sum(axis=1), p_clear=mc.sum(axis=1),
-                            asn=mf @ nf + mc @ nc, residual=self.residual(p))
+        pf, nf = self._totals(True, p)
+        pc, nc = self._totals(False, p)
+        return ExactSummary(p=p, p_flag=pf, p_clear=pc, asn=nf + nc, residual=self.residual(p))
 
     def evaluate(self, p, residual_tol: float = RESIDUAL_TOL) -> "ExactResult":
         """Exact figures of the plan at every rate in ``p`` (vectorised over p)."""
