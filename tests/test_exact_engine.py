@@ -127,3 +127,13 @@ def test_curve_vectorised_equals_one_rate_at_a_time():
         alone = run_exact(plan, [p])
         assert alone.p_flag[0] == pytest.approx(together.p_flag[i], abs=1e-13)
         assert alone.asn[0] == pytest.approx(together.asn[i], abs=1e-10)
+
+
+def test_long_untruncated_plan_still_reaches_the_residual():
+    # close rates (ASN in the thousands): the recursion must run long enough that less than
+    # 1e-12 stays open at p0, p1 and near s, the slowest rate (the engine's contract)
+    plan = SprtPlan.wald(0.005, 0.01, 0.05, 0.10)
+    ex = run_exact(plan, [plan.p0, plan.s, plan.p1])
+    assert ex.residual.max() < 1e-12
+    np.testing.assert_allclose(ex.p_flag + ex.p_clear, 1.0, atol=1e-11)
+    assert ex.asn[1] > ex.asn[0] > 100
