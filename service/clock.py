@@ -15,16 +15,40 @@ def utc_now() -> str:
     return format_time(datetime.now(timezone.utc))
 
 
-_Z_FORM = re.compile(r"^(\d{4}-\d{2}-\d{2})[Tt](\d{2}:\d{2}:\d{2})(?:\.(\d{1,6}))?[Zz]$")
+_Z_FORM = re.compile(r"^(\d{4}-\d{2}-\d{2})[Tt]((?:[01]\d|2[0-3]):[0-5]\d:[0-5]\d)"
+                     r"(?:\.(\d{1,6}))?[Zz]$")
+_GOOD_DAYS: dict[str, bool] = {}
+
+
+def _real_day(day: str) -> bool:
+    """Whether YYYY-MM-DD is a calendar date (cached: tablets send few distinct days)."""
+    known = _GOOD_DAYS.get(day)
+    if known is None:
+        try:
+            datetime.fromisoformat(day)
+            known = True
+        except ValueError:
+            known = False
+        if len(_GOOD_DAYS) > 100_000:
+            _GOOD_DAYS.clear()
+        _GOOD_DAYS[day] = known
+    return known
+
+
+def normalize_utc_text(text: str) -> str:
+    """The instant of an RFC 3339 date-time as UTC text 'YYYY-MM-DDTHH:MM:SS.ffffffZ'
+    (which sorts like the instant); ValueError if it is not a valid date-time."""
+    z = _Z_FORM.match(text) if isinstance(text, str) else None
+    if z:  # already UTC (the common case from tablets): no datetime arithmetic needed
+        day, clock, frac = z.groups()
+        if not _real_day(day):
+            raise ValueError(f"is not a valid date-time: {day} is not a calendar date")
+        return f"{day}T{clock}.{(frac or '').ljust(6, '0')}Z"
+    return normalize_rfc3339(text)[1]
 
 
 def normalize_rfc3339(text: str) -> tuple[datetime, str]:
     """(instant, the same instant as UTC text) for an RFC 3339 date-time; ValueError if bad."""
-    z = _Z_FORM.match(text) if isinstance(text, str) else None
-    if z:  # already UTC: the text form needs no conversion (the common case from tablets)
-        day, clock, frac = z.groups()
-        moment = datetime.fromisoformat(f"{day}T{clock}.{(frac or '').ljust(6, '0')}+00:00")
-        return moment, f"{day}T{clock}.{(frac or '').ljust(6, '0')}Z"
     moment = parse_rfc3339(text)
     utc = moment.astimezone(timezone.utc)
     return moment, utc.isoformat(timespec="microseconds").replace("+00:00", "Z")

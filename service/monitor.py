@@ -8,7 +8,7 @@ change the decision. Replaying a cycle is a fold of :func:`apply_record`.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 from .stats import CLEARED, FLAGGED, MONITORING, SprtPlan
 
@@ -67,8 +67,8 @@ def apply_record(plan: SprtPlan, state: CycleState, rec: Evidence) -> tuple[Cycl
     units = state.units + rec.units
     bad = state.nonconforming + rec.nonconforming
     status = plan.decide(units, bad)
-    if status == MONITORING:
-        return replace(state, units=units, nonconforming=bad), None, True
+    if status == MONITORING:  # (built directly: dataclasses.replace is slow on a hot path)
+        return CycleState(MONITORING, units, bad), None, True
     at_cap = (plan.max_units is not None and units >= plan.max_units
               and plan.llr(units, bad) < plan.upper_llr - 1e-9
               and plan.llr(units, bad) > plan.lower_llr + 1e-9)

@@ -7,12 +7,13 @@ from __future__ import annotations
 
 import json
 import threading
+from datetime import timedelta
 from dataclasses import dataclass
 from typing import Any, Callable
 
 from pydantic import TypeAdapter, ValidationError
 
-from .clock import normalize_rfc3339, parse_rfc3339, utc_now
+from .clock import format_time, normalize_utc_text, parse_rfc3339, utc_now
 from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
 from .schemas import FacilityCreate, RecordCreate
@@ -162,12 +163,13 @@ class Monitor:
         return self.facility(facility_id)
 
     # -- records -----------------------------------------------------------------
-    def _record_in(self, rec: RecordCreate, now_dt) -> RecordIn:
+    def _record_in(self, rec: RecordCreate, latest: str) -> RecordIn:
+        """``latest``: the newest acceptable observed_at, as normalised UTC text."""
         try:
-            moment, utc_text = normalize_rfc3339(rec.observed_at)
+            utc_text = normalize_utc_text(rec.observed_at)
         except ValueError as exc:
             raise Invalid(f"observed_at {exc}", field="observed_at") from None
-        if (moment - now_dt).total_seconds() > self.future_tolerance_s:
+        if utc_text > latest:
             raise Invalid(f"observed_at {rec.observed_at} lies in the future", field="observed_at")
         return RecordIn(record_id=rec.record_id, facility_id=rec.facility_id,
                         observed_at=rec.observed_at, observed_utc=utc_text,
@@ -196,7 +198,7 @@ class Monitor:
                               field="body")
             items = [payload]
         now = self.clock()
-        now_dt = parse_rfc3339(now)
+        latest = format_time(parse_rfc3339(now) + timedelta(seconds=self.future_tolerance_s))
         results: list[dict | None] = [None] * len(items)
         valid: list[RecordIn] = []
         where: list[int] = []
@@ -210,12 +212,12 @@ class Monitor:
             prefix = f"records.{i}." if batch else ""
             try:
                 if checked is not None:
-                    valid.append(self._record_in(checked[i], now_dt))
+                    valid.append(self._record_in(checked[i], latest))
                     where.append(i)
                     continue
                 if not isinstance(raw, dict):
                     raise Invalid("a record must be a JSON object", field=prefix.rstrip(".") or "body")
-                valid.append(self._record_in(RecordCreate.model_validate(raw), now_dt))
+                valid.append(self._record_in(RecordCreate.model_validate(raw), latest))
                 where.append(i)
             except ValidationError as exc:
                 results[i] = self._invalid(i, raw, validation_errors(exc, prefix))
