@@ -27,7 +27,6 @@ import sys
 import tempfile
 import threading
 import time
-from dataclasses import replace
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent

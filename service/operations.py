@@ -25,16 +25,20 @@ Actor = tuple[str, str]   # (key label, role)
 _RECORDS = TypeAdapter(list[RecordCreate])
 
 
+def error_message(err: dict) -> str:
+    """A pydantic error's message as a person reads it."""
+    if err.get("type") == "extra_forbidden":
+        return "unknown field"
+    msg = str(err.get("msg", "invalid"))
+    return msg[len("Value error, "):] if msg.startswith("Value error, ") else msg
+
+
 def validation_errors(exc: ValidationError, prefix: str = "") -> list[dict]:
     """pydantic errors as [{field, message}] with dotted field paths."""
     out = []
     for err in exc.errors(include_url=False):
         loc = ".".join(str(p) for p in err["loc"] if p != "__root__")
-        msg = err["msg"]
-        if msg.startswith("Value error, "):
-            msg = msg[len("Value error, "):]
-        if err["type"] == "extra_forbidden":
-            msg = "unknown field"
+        msg = error_message(err)
         out.append({"field": (prefix + loc) if loc else prefix.rstrip(".") or "body",
                     "message": msg})
     return out

@@ -7,7 +7,6 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field, StrictInt, StrictStr, field_validator, \
     model_validator
 
-from .clock import parse_rfc3339
 
 Status = Literal["monitoring", "flagged", "cleared", "closed"]
 AlertKind = Literal["flagged", "cleared", "decision_revised", "cap_reached", "stale",

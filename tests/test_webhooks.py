@@ -157,7 +157,7 @@ def test_410_disables_the_subscription(env):
     client, keys, clock, app, http = env
     receiver = Receiver().start()
     try:
-        hook = subscribe(client, keys, receiver.url)
+        subscribe(client, keys, receiver.url)
         receiver.script = [410]
         fid = new_facility(client, keys)
         flag(client, keys, fid)

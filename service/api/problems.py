@@ -9,7 +9,7 @@ from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from ..errors import ServiceError
-from ..operations import validation_errors
+from ..operations import error_message, validation_errors
 
 PROBLEM_TYPE = "application/problem+json"
 log = logging.getLogger("seqaudit.api")
@@ -65,11 +65,7 @@ def install(app: FastAPI) -> None:
         errors = []
         for err in exc.errors():
             loc = [str(p) for p in err.get("loc", ()) if p not in ("body",)]
-            msg = str(err.get("msg", "invalid"))
-            if msg.startswith("Value error, "):
-                msg = msg[len("Value error, "):]
-            if err.get("type") == "extra_forbidden":
-                msg = "unknown field"
+            msg = error_message(err)
             errors.append({"field": ".".join(loc[1:] if loc and loc[0] in ("query", "path")
                                              else loc) or "body",
                            "in": loc[0] if loc and loc[0] in ("query", "path") else "body",

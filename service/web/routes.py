@@ -14,7 +14,7 @@ from ..cautions import ASSUMPTIONS, SIGNAL_NOT_VERDICT
 from ..errors import ServiceError
 from ..operations import Monitor
 from ..stats import PlanInputError
-from .sessions import (COOKIE, LOGIN_CSRF_COOKIE, BadCsrf, SignInRequired, UiUser, check_csrf,
+from .sessions import (COOKIE, LOGIN_CSRF_COOKIE, BadCsrf, UiUser, check_csrf,
                        cookie_args, current_user, sign_in)
 from .svg import COLOURS, curve_chart, llr_bar, path_chart
 
