@@ -8,7 +8,7 @@ change the decision. Replaying a cycle is a fold of :func:`apply_record`.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from typing import NamedTuple
 
 from .stats import CLEARED, FLAGGED, MONITORING, SprtPlan
 
@@ -17,9 +17,12 @@ STATUSES = (MONITORING, FLAGGED, CLEARED, CLOSED)
 DECIDED = (FLAGGED, CLEARED)
 
 
-@dataclass(frozen=True)
-class CycleState:
-    """What a cycle knows after its evidence so far."""
+class CycleState(NamedTuple):
+    """What a cycle knows after its evidence so far.
+
+    Immutable value types here are named tuples: on the ingest path one is made per record,
+    and a named tuple is built several times faster than a frozen dataclass.
+    """
 
     status: str = MONITORING
     units: int = 0
@@ -34,8 +37,7 @@ class CycleState:
         return self.status == MONITORING
 
 
-@dataclass(frozen=True)
-class Evidence:
+class Evidence(NamedTuple):
     """The part of a record the test uses."""
 
     seq: int
@@ -44,8 +46,7 @@ class Evidence:
     received_at: str
 
 
-@dataclass(frozen=True)
-class Decision:
+class Decision(NamedTuple):
     """A cycle became decided by this record."""
 
     status: str           # flagged or cleared
@@ -67,7 +68,7 @@ def apply_record(plan: SprtPlan, state: CycleState, rec: Evidence) -> tuple[Cycl
     units = state.units + rec.units
     bad = state.nonconforming + rec.nonconforming
     status = plan.decide(units, bad)
-    if status == MONITORING:  # (built directly: dataclasses.replace is slow on a hot path)
+    if status == MONITORING:
         return CycleState(MONITORING, units, bad), None, True
     at_cap = (plan.max_units is not None and units >= plan.max_units
               and plan.llr(units, bad) < plan.upper_llr - 1e-9

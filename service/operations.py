@@ -23,6 +23,12 @@ from .store import RecordIn, Store
 
 Actor = tuple[str, str]   # (key label, role)
 _RECORDS = TypeAdapter(list[RecordCreate])
+_CODES = {"accepted": 201, "duplicate": 200, "conflict": 409, "invalid": 422}
+
+
+def _prefix(index: int, batch: bool) -> str:
+    """Where a record's fields are in the request body, for error reports."""
+    return f"records.{index}." if batch else ""
 
 
 def error_message(err: dict) -> str:
@@ -175,10 +181,8 @@ class Monitor:
             raise Invalid(f"observed_at {exc}", field="observed_at") from None
         if utc_text > latest:
             raise Invalid(f"observed_at {rec.observed_at} lies in the future", field="observed_at")
-        return RecordIn(record_id=rec.record_id, facility_id=rec.facility_id,
-                        observed_at=rec.observed_at, observed_utc=utc_text,
-                        units=rec.units, nonconforming=rec.nonconforming, unit_ref=rec.unit_ref,
-                        inspector=rec.inspector, note=rec.note)
+        return RecordIn(rec.record_id, rec.facility_id, rec.observed_at, utc_text, rec.units,
+                        rec.nonconforming, rec.unit_ref, rec.inspector, rec.note)
 
     def post_records(self, payload: Any, actor: Actor, with_state: bool) -> tuple[int, dict]:
         """Ingest one record or ``{"records": [...]}``; returns (HTTP status, body)."""
@@ -213,22 +217,21 @@ class Monitor:
         except ValidationError:
             checked = None
         for i, raw in enumerate(items):
-            prefix = f"records.{i}." if batch else ""
             try:
-                if checked is not None:
-                    valid.append(self._record_in(checked[i], latest))
-                    where.append(i)
-                    continue
-                if not isinstance(raw, dict):
-                    raise Invalid("a record must be a JSON object", field=prefix.rstrip(".") or "body")
-                valid.append(self._record_in(RecordCreate.model_validate(raw), latest))
+                if checked is None:
+                    if not isinstance(raw, dict):
+                        raise Invalid("a record must be a JSON object", field="")
+                    rec = RecordCreate.model_validate(raw)
+                else:
+                    rec = checked[i]
+                valid.append(self._record_in(rec, latest))
                 where.append(i)
             except ValidationError as exc:
-                results[i] = self._invalid(i, raw, validation_errors(exc, prefix))
+                results[i] = self._invalid(i, raw, validation_errors(exc, _prefix(i, batch)))
             except Invalid as exc:
-                field = exc.extra.get("field", "body")
-                if not field.startswith(prefix):
-                    field = prefix + field
+                prefix, field = _prefix(i, batch), exc.extra.get("field", "body")
+                if not field.startswith(prefix) or not field:
+                    field = (prefix + field).rstrip(".") or "body"
                 results[i] = self._invalid(i, raw, [{"field": field, "message": exc.detail}])
         rejected_before = len(items) - len(valid)
         if valid:
@@ -238,12 +241,11 @@ class Monitor:
             outcomes = []
         states: dict[str, dict] = {}
         for pos, out in zip(where, outcomes):
-            code = {"accepted": 201, "duplicate": 200, "conflict": 409, "invalid": 422}[out.status]
-            result = {"index": pos, "record_id": out.record_id, "status": out.status, "code": code,
-                      "seq": out.seq if out.status != "invalid" else None}
+            result = {"index": pos, "record_id": out.record_id, "status": out.status,
+                      "code": _CODES[out.status], "seq": out.seq}
             if out.detail:
-                field = (f"records.{pos}." if batch else "") + (out.field or "body")
-                result["errors"] = [{"field": field, "message": out.detail}]
+                result["errors"] = [{"field": _prefix(pos, batch) + (out.field or "body"),
+                                     "message": out.detail}]
             if with_state and out.status in ("accepted", "duplicate") and out.facility_id:
                 if out.facility_id not in states:
                     states[out.facility_id] = self.facility(out.facility_id, with_cycles=False)

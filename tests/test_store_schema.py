@@ -1,0 +1,96 @@
+"""Schema migrations and how values land in SQLite.
+
+The v4 migration drops the records' content hash; a database written before it must keep
+every record and still tell a retry (duplicate) from a reused id (conflict), now by comparing
+the stored columns.
+"""
+import sqlite3
+
+import sqlite_utils
+
+from service.operations import Monitor, PlanBook
+from service.settings import load_settings
+from service.store import Store
+from service.store.migrations import MIGRATIONS, migrate
+
+ACTOR = ("test", "field")
+
+
+def _columns(db, table):
+    return [r[1] for r in sqlite3.connect(db).execute(f"PRAGMA table_info({table})")]
+
+
+def _monitor(db) -> Monitor:
+    return Monitor(store=Store(db), plans=PlanBook(load_settings(db_path=db).plans),
+                   clock=lambda: "2026-12-01T08:00:00.000000Z")
+
+
+def test_a_fresh_database_has_every_migration_once(tmp_path):
+    db = tmp_path / "fresh.db"
+    store = Store(db)
+    assert store.migrate() == len(MIGRATIONS)
+    assert store.migrate() == len(MIGRATIONS)          # a second run applies nothing
+    versions = [r["version"] for r in store.read("SELECT version FROM schema_version")]
+    assert versions == list(range(1, len(MIGRATIONS) + 1))
+    assert "content_hash" not in _columns(db, "records")
+
+
+def test_records_written_before_v4_survive_and_still_deduplicate(tmp_path):
+    db = tmp_path / "old.db"
+    conn = sqlite3.connect(db, isolation_level=None)
+    old = sqlite_utils.Database(conn)
+    old.execute("CREATE TABLE schema_version (version INTEGER NOT NULL)")
+    for number, step in enumerate(MIGRATIONS[:3], start=1):   # the schema as of v3
+        step(old)
+        old.execute("INSERT INTO schema_version (version) VALUES (?)", [number])
+    conn.close()
+    m = _monitor(db)
+    snapshot = m.plans.snapshot("dispensers")
+    m.store.add_facility("OLD-1", "Harbour Road Scales Ltd", "dispensers", snapshot,
+                         "2026-11-01T00:00:00.000000Z", ("test", "admin"))
+    with m.store.write() as w:   # a record as the v3 code stored it, hash and all
+        w.execute("INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, "
+                  "observed_utc, received_at, units, nonconforming, unit_ref, inspector, note, "
+                  "content_hash, counted, void, key_label) VALUES (1, 'r-1', 'OLD-1', 1, "
+                  "'2026-11-02T10:00:00+01:00', '2026-11-02T09:00:00.000000Z', "
+                  "'2026-11-02T09:05:00.000000Z', 1, 1, NULL, 'J. Okafor', '', 'ab' || 'cd', "
+                  "1, 0, 'tablet 3')")
+        w.execute("UPDATE cycles SET units = 1, nonconforming = 1, record_count = 1")
+    assert "content_hash" in _columns(db, "records")
+
+    assert migrate(sqlite_utils.Database(sqlite3.connect(db))) == len(MIGRATIONS)
+    assert "content_hash" not in _columns(db, "records")
+    kept = m.store.record("r-1")
+    assert (kept["seq"], kept["observed_at"], kept["inspector"], kept["note"],
+            kept["unit_ref"], kept["key_label"]) == (1, "2026-11-02T10:00:00+01:00",
+                                                     "J. Okafor", "", None, "tablet 3")
+
+    retry = {"record_id": "r-1", "facility_id": "OLD-1", "units": 1, "nonconforming": 1,
+             "observed_at": "2026-11-02T09:00:00Z",      # the same instant, written in UTC
+             "inspector": "J. Okafor", "note": ""}
+    code, body = m.post_records(retry, ACTOR, with_state=False)
+    assert (code, body["status"], body["seq"]) == (200, "duplicate", 1)
+    for change in ({"nonconforming": 0}, {"note": None}, {"unit_ref": ""},
+                   {"observed_at": "2026-11-02T09:00:01Z"}):
+        _, report = m.post_records({"records": [{**retry, **change}]}, ACTOR, with_state=False)
+        assert report["results"][0]["status"] == "conflict", change
+    assert m.store.facility("OLD-1")["units"] == 1          # nothing counted twice
+
+
+def test_none_is_stored_as_null_and_empty_text_as_text(tmp_path):
+    # the store registers an sqlite3 adapter for None (for speed); it must still write NULL
+    db = tmp_path / "values.db"
+    m = _monitor(db)
+    m.store.migrate()
+    m.store.add_facility("V-1", "Quayside Fuel Services", "dispensers",
+                         m.plans.snapshot("dispensers"), "2026-11-01T00:00:00.000000Z",
+                         ("test", "admin"))
+    base = {"facility_id": "V-1", "observed_at": "2026-11-30T09:00:00Z", "nonconforming": 0}
+    m.post_records({"records": [{**base, "record_id": "a"},
+                                {**base, "record_id": "b", "unit_ref": "", "note": "",
+                                 "inspector": ""}]}, ACTOR, with_state=False)
+    rows = sqlite3.connect(db).execute(
+        "SELECT record_id, typeof(unit_ref), typeof(inspector), typeof(note), "
+        "typeof(key_label) FROM records ORDER BY seq").fetchall()
+    assert rows == [("a", "null", "null", "null", "text"), ("b", "text", "text", "text", "text")]
+    assert sqlite3.connect(":memory:").execute("SELECT ? IS NULL", (None,)).fetchone() == (1,)
