@@ -11,6 +11,7 @@ from __future__ import annotations
 from typing import NamedTuple
 
 from .stats import CLEARED, FLAGGED, MONITORING, SprtPlan
+from .stats.sprt import BOUNDARY_TOL
 
 CLOSED = "closed"
 STATUSES = (MONITORING, FLAGGED, CLEARED, CLOSED)
@@ -76,6 +77,42 @@ def apply_record(plan: SprtPlan, state: CycleState, rec: Evidence) -> tuple[Cycl
     new = CycleState(status=status, units=units, nonconforming=bad, decided_seq=rec.seq,
                      decided_after_units=units, decided_at=rec.received_at, at_cap=at_cap)
     return new, Decision(status=status, at_cap=at_cap, after_units=units), True
+
+
+def apply_run(plan: SprtPlan, state: CycleState, seqs: list[int], units: list[int],
+              bad: list[int], received_at: str) -> tuple[CycleState, Decision | None, int]:
+    """Add consecutive records of one cycle, all received at ``received_at``: the same as
+    folding :func:`apply_record` over them, one Python step for the whole run when no
+    prefix of it can reach a boundary or the cap.
+
+    Returns
+    -------
+    (state, decision, counted)
+        the first ``counted`` records are evidence; when ``decision`` is not None the
+        last of them decided the cycle.
+
+    Notes
+    -----
+    The LLR ``d (g1 + g2) - n g2`` grows with ``d`` and falls with ``n`` (g1, g2 > 0 as
+    p1 > p0), and floating-point multiplication and subtraction are monotone, so no prefix
+    of the run has an LLR above ``llr(n, d + D)`` or below ``llr(n + N, d)`` (N units, D of
+    them nonconforming, in the run). When both lie strictly inside the boundaries and the cap
+    is not reached, no record decides.
+    """
+    if not state.is_open:
+        return state, None, 0
+    n, d = state.units, state.nonconforming
+    more_units, more_bad = sum(units), sum(bad)
+    if (plan.llr(n, d + more_bad) < plan.upper_llr - BOUNDARY_TOL
+            and plan.llr(n + more_units, d) > plan.lower_llr + BOUNDARY_TOL
+            and (plan.max_units is None or n + more_units < plan.max_units)):
+        return CycleState(MONITORING, n + more_units, d + more_bad), None, len(seqs)
+    for i, seq in enumerate(seqs):
+        state, decision, _ = apply_record(plan, state, Evidence(seq, units[i], bad[i],
+                                                                received_at))
+        if decision is not None:
+            return state, decision, i + 1
+    return state, None, len(seqs)
 
 
 def replay(plan: SprtPlan, records, stop_seq: int | None = None) -> tuple[CycleState, list[bool]]:

@@ -7,22 +7,24 @@ from __future__ import annotations
 
 import json
 import threading
-from datetime import timedelta
 from dataclasses import dataclass
+from datetime import timedelta
 from typing import Any, Callable
 
+import orjson
 from pydantic import TypeAdapter, ValidationError
 
 from .clock import format_time, normalize_utc_text, parse_rfc3339, utc_now
 from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
-from .schemas import FacilityCreate, RecordCreate
+from .schemas import FacilityCreate, RecordBatchCreate, RecordCreate
 from .stats import SprtPlan, design
 from .stats.calibrate import calibrate
 from .store import RecordIn, Store
 
 Actor = tuple[str, str]   # (key label, role)
 _RECORDS = TypeAdapter(list[RecordCreate])
+_BATCH = TypeAdapter(RecordBatchCreate)
 _CODES = {"accepted": 201, "duplicate": 200, "conflict": 409, "invalid": 422}
 
 
@@ -205,17 +207,41 @@ class Monitor:
                 raise Invalid("the body must be a record object or {\"records\": [...]}",
                               field="body")
             items = [payload]
-        now = self.clock()
-        latest = format_time(parse_rfc3339(now) + timedelta(seconds=self.future_tolerance_s))
-        results: list[dict | None] = [None] * len(items)
-        valid: list[RecordIn] = []
-        where: list[int] = []
         # One validation call for the whole batch; only if it fails is each record checked
         # alone, so that every bad record is reported by itself.
         try:
             checked = _RECORDS.validate_python(items)
         except ValidationError:
             checked = None
+        return self._ingest(items, checked, batch, actor, with_state)
+
+    def post_records_json(self, body: bytes, actor: Actor, with_state: bool) -> tuple[int, dict]:
+        """:meth:`post_records` from the request body as sent.
+
+        A well-formed batch is validated straight from its JSON in one pass through
+        pydantic-core; any other body is parsed and checked piece by piece by post_records,
+        which names each fault.
+        """
+        try:
+            records = _BATCH.validate_json(body).records
+        except ValidationError:
+            records = None
+        if records is None or len(records) > self.max_batch:
+            try:
+                payload = orjson.loads(body)
+            except orjson.JSONDecodeError as exc:
+                raise Invalid(f"the body is not valid JSON: {exc}", field="body") from None
+            return self.post_records(payload, actor, with_state)
+        return self._ingest(records, records, True, actor, with_state)
+
+    def _ingest(self, items: list, checked: list[RecordCreate] | None, batch: bool, actor: Actor,
+                with_state: bool) -> tuple[int, dict]:
+        """Store the records that pass; ``checked``: all of ``items`` validated, or None."""
+        now = self.clock()
+        latest = format_time(parse_rfc3339(now) + timedelta(seconds=self.future_tolerance_s))
+        results: list[dict | None] = [None] * len(items)
+        valid: list[RecordIn] = []
+        where: list[int] = []
         for i, raw in enumerate(items):
             try:
                 if checked is None:
@@ -266,7 +292,7 @@ class Monitor:
 
     @staticmethod
     def _invalid(index: int, raw: Any, errors: list[dict]) -> dict:
-        rid = raw.get("record_id") if isinstance(raw, dict) else None
+        rid = raw.get("record_id") if isinstance(raw, dict) else getattr(raw, "record_id", None)
         return {"index": index, "record_id": rid if isinstance(rid, str) else None,
                 "status": "invalid", "code": 422, "seq": None, "errors": errors}
 

@@ -71,6 +71,31 @@ def test_batch_keeps_good_records_and_reports_each_bad_one(client, keys):
     assert 'seqaudit_records_total{outcome="rejected"} 7' in metrics
 
 
+def test_a_schema_valid_batch_still_reports_each_later_fault(client, keys, app):
+    # every record passes the schema, so the body takes the one-pass JSON validation; the
+    # checks after it (calendar date, future, unknown facility) must still name each record
+    fid = new_facility(client, keys)
+    batch = [record(fid, "v-1", 0), record(fid, "v-2", 0, observed_at="2026-02-30T10:00:00Z"),
+             record(fid, "v-3", 0, observed_at="2999-01-01T00:00:00Z"),
+             record("NOPE", "v-4", 0), record(fid, "v-5", 1), record(fid, "v-1", 0)]
+    r = client.post("/v1/records", json={"records": batch}, headers=keys.header("field"))
+    res = r.json()["results"]
+    assert [(x["record_id"], x["status"]) for x in res] == [
+        ("v-1", "accepted"), ("v-2", "invalid"), ("v-3", "invalid"), ("v-4", "invalid"),
+        ("v-5", "accepted"), ("v-1", "duplicate")]
+    assert [x["errors"][0]["field"] for x in res[1:4]] == [
+        "records.1.observed_at", "records.2.observed_at", "records.3.facility_id"]
+    assert "calendar date" in res[1]["errors"][0]["message"]
+    assert "future" in res[2]["errors"][0]["message"]
+    # the same batch through the parsed-dict path gives the same report, record for record
+    again = [dict(b, record_id="w" + b["record_id"]) for b in batch]
+    _, report = app.state.monitor.post_records({"records": again}, ("test", "field"), False)
+    strip = lambda xs: [(x["status"], [(e["field"], e["message"].replace("'w", "'"))
+                                       for e in x.get("errors", [])]) for x in xs]
+    assert strip(report["results"]) == strip(res)
+    assert state(client, keys, fid)["units"] == 4
+
+
 def test_void_replays_and_revises_the_decision(client, keys):
     fid = new_facility(client, keys)
     for i in range(3):

@@ -1,6 +1,7 @@
 """The FastAPI application: `create_app(settings)` builds it; nothing is global."""
 from __future__ import annotations
 
+import gc
 from contextlib import asynccontextmanager
 from typing import Callable
 
@@ -66,4 +67,10 @@ def app_from_env() -> FastAPI:
     logging.basicConfig(level=logging.INFO, format="%(levelname)s:     %(name)s: %(message)s")
     for noisy in ("apscheduler", "httpx2", "httpcore2", "httpx", "httpcore"):
         logging.getLogger(noisy).setLevel(logging.WARNING)
-    return create_app(load_settings())
+    app = create_app(load_settings())
+    # Everything imported and built so far lives as long as the process. Freezing it keeps the
+    # cyclic garbage collector from walking those millions of objects on each full
+    # collection: otherwise every few thousand records a request stalls for 60-100 ms.
+    gc.collect()
+    gc.freeze()
+    return app

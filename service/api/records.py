@@ -1,9 +1,8 @@
 import orjson
-
 from fastapi import APIRouter, Depends, Request
 from fastapi.responses import Response
+from starlette.concurrency import run_in_threadpool
 
-from ..errors import Invalid
 from ..operations import Monitor
 from ..schemas import IngestReport, IngestResult, ReasonCreate, RecordBatchCreate, RecordCreate, \
     VoidResult
@@ -23,12 +22,7 @@ _BODY = {"requestBody": {"required": True, "content": {"application/json": {"sch
 async def post_records(request: Request, actor=Depends(field_or_above),
                        m: Monitor = Depends(monitor)):
     raw = await request.body()   # the BodyLimit middleware has capped its size
-    try:
-        payload = orjson.loads(raw)   # batches of 1000 records: orjson keeps parsing cheap
-    except orjson.JSONDecodeError as exc:
-        raise Invalid(f"the body is not valid JSON: {exc}", field="body") from None
-    from starlette.concurrency import run_in_threadpool
-    status, body = await run_in_threadpool(m.post_records, payload, actor,
+    status, body = await run_in_threadpool(m.post_records_json, raw, actor,
                                            RANK[actor[1]] >= RANK["analyst"])
     return Response(orjson.dumps(body), status_code=status, media_type="application/json")
 

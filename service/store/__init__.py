@@ -19,7 +19,7 @@ from typing import NamedTuple
 import sqlite_utils
 
 from ..errors import Conflict, Invalid, NotFound
-from ..monitor import CLOSED, CycleState, Evidence, apply_record, llr_path, replay
+from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
 from ..stats import MONITORING, SprtPlan
 from .migrations import migrate
 from .outbox import OutboxMixin, SessionMixin
@@ -439,6 +439,7 @@ class Store(OutboxMixin, SessionMixin):
         cycles = self._current_cycles(conn, list({it.facility_id for it in items}))
         seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
         batch: dict[str, tuple[RecordIn, int]] = {}     # ids first seen in this job
+        runs: dict[str, tuple[list, list, list, list]] = {}   # facility -> its new records
         inserts, alerts, outcomes = [], [], []
         duplicates = rejected = 0
         for index, it in enumerate(items):
@@ -471,22 +472,37 @@ class Store(OutboxMixin, SessionMixin):
                                               "facility_id"))
                 continue
             seq += 1
-            state, decision, counted = apply_record(
-                cyc["_plan"], cyc["_state"], Evidence(seq, it.units, it.nonconforming, now))
-            cyc["_state"] = state
-            cyc["record_count"] += 1
+            run = runs.get(it.facility_id)
+            if run is None:
+                run = runs[it.facility_id] = ([], [], [], [])
+            run[0].append(len(inserts))
+            run[1].append(seq)
+            run[2].append(it.units)
+            run[3].append(it.nonconforming)
             inserts.append((seq, rid, it.facility_id, cyc["cycle"], it.observed_at,
                             it.observed_utc, now, it.units, it.nonconforming, it.unit_ref,
-                            it.inspector, it.note, int(counted), key_label))
+                            it.inspector, it.note, 1, key_label))
             batch[rid] = (it, seq)
-            if decision is not None:
-                alerts += self._decision_alerts(cyc, state, rid, now)
             outcomes.append(IngestOutcome(index, rid, "accepted", seq, it.facility_id))
+        # each facility's new records in receipt order, as one run through the pure update
+        decided = []
+        for fid, (positions, seqs, units, bad) in runs.items():
+            cyc = cycles[fid]
+            state, decision, counted = apply_run(cyc["_plan"], cyc["_state"], seqs, units, bad,
+                                                 now)
+            for p in positions[counted:]:      # kept, but the cycle had stopped: not evidence
+                row = inserts[p]
+                inserts[p] = row[:12] + (0,) + row[13:]
+            if decision is not None:
+                decided.append((seqs[counted - 1], cyc, state, inserts[positions[counted - 1]][1]))
+            cyc["_state"] = state
+            cyc["record_count"] += len(positions)
+            cyc["last_record_at"] = now
         conn.executemany(_INSERT_RECORDS, inserts)
-        for cyc in cycles.values():
-            if cyc["record_count"] != cyc["_count_before"]:
-                cyc["last_record_at"] = now
-                self._write_state(conn, cyc, cyc["_state"])
+        for fid in runs:
+            self._write_state(conn, cycles[fid], cycles[fid]["_state"])
+        for _, cyc, state, rid in sorted(decided, key=lambda x: x[0]):   # alerts in record order
+            alerts += self._decision_alerts(cyc, state, rid, now)
         self._insert_alerts(conn, alerts)
         self._bump(conn, "records_accepted", len(inserts))
         self._bump(conn, "records_duplicate", duplicates)
@@ -518,7 +534,6 @@ class Store(OutboxMixin, SessionMixin):
             for row in _rows(cur):
                 row["_plan"] = plan_from_snapshot(json.loads(row["plan_json"]))
                 row["_state"] = _state_of(row)
-                row["_count_before"] = row["record_count"]
                 out[row["facility_id"]] = row
         return out
 
