@@ -47,6 +47,8 @@ async def caller(request: Request) -> tuple[str, str]:
 
 def require(minimum: str):
     """Dependency: the caller's role ranks at least ``minimum``; 403 otherwise."""
+    if minimum == min(RANK, key=RANK.get):
+        return caller      # every role passes: spare the hot record route a dependency level
 
     async def check(actor: tuple[str, str] = Depends(caller)) -> tuple[str, str]:
         if RANK[actor[1]] < RANK[minimum]:

@@ -19,8 +19,8 @@ _BODY = {"requestBody": {"required": True, "content": {"application/json": {"sch
              responses={201: {"model": IngestResult, "description": "one record accepted"},
                         200: {"model": IngestReport | IngestResult,
                               "description": "a duplicate of a stored record, or a batch report"}})
-async def post_records(request: Request, actor=Depends(field_or_above),
-                       m: Monitor = Depends(monitor)):
+async def post_records(request: Request, actor=Depends(field_or_above)):
+    m: Monitor = request.app.state.monitor   # (not a dependency: each costs this hot route)
     raw = await request.body()   # the BodyLimit middleware has capped its size
     status, body = await run_in_threadpool(m.post_records_json, raw, actor,
                                            RANK[actor[1]] >= RANK["analyst"])

@@ -34,6 +34,20 @@ def hash_key(key: str) -> str:
     return hashlib.sha256(key.encode("utf-8")).hexdigest()
 
 
+_SNAPSHOT_PLANS: dict[str, SprtPlan] = {}
+
+
+def plan_of(plan_json: str) -> SprtPlan:
+    """The plan of a cycle's stored snapshot text, built once per distinct text (plans are
+    immutable and there are few distinct snapshots; each ingest needs its cycles' plans)."""
+    plan = _SNAPSHOT_PLANS.get(plan_json)
+    if plan is None:
+        if len(_SNAPSHOT_PLANS) >= 1024:
+            _SNAPSHOT_PLANS.clear()
+        plan = _SNAPSHOT_PLANS[plan_json] = plan_from_snapshot(json.loads(plan_json))
+    return plan
+
+
 def plan_from_snapshot(snapshot: dict) -> SprtPlan:
     return SprtPlan(p0=snapshot["p0"], p1=snapshot["p1"], alpha=snapshot["alpha"],
                     beta=snapshot["beta"], upper_llr=snapshot["upper_llr"],
@@ -532,7 +546,7 @@ class Store(OutboxMixin, SessionMixin):
                 f"AND c.cycle = f.current_cycle WHERE f.facility_id IN "
                 f"({','.join('?' * len(part))})", part)
             for row in _rows(cur):
-                row["_plan"] = plan_from_snapshot(json.loads(row["plan_json"]))
+                row["_plan"] = plan_of(row["plan_json"])
                 row["_state"] = _state_of(row)
                 out[row["facility_id"]] = row
         return out
@@ -583,7 +597,7 @@ class Store(OutboxMixin, SessionMixin):
         cyc = self.cycle(facility_id, cycle)
         rows = self.read("SELECT * FROM records WHERE facility_id = ? AND cycle = ? ORDER BY seq",
                          (facility_id, cycle))
-        plan = plan_from_snapshot(json.loads(cyc["plan_json"]))
+        plan = plan_of(cyc["plan_json"])
         live = [r for r in rows if not r["void"]]
         evidence = [Evidence(r["seq"], r["units"], r["nonconforming"], r["received_at"])
                     for r in live]
@@ -616,7 +630,7 @@ class Store(OutboxMixin, SessionMixin):
                                      (fid, number)))[0]
             current = conn.execute("SELECT current_cycle FROM facilities WHERE facility_id = ?",
                                    (fid,)).fetchone()[0]
-            cyc["_plan"] = plan_from_snapshot(json.loads(cyc["plan_json"]))
+            cyc["_plan"] = plan_of(cyc["plan_json"])
             before = _state_of(cyc)
             live = _rows(conn.execute("SELECT seq, units, nonconforming, received_at FROM records "
                                       "WHERE facility_id = ? AND cycle = ? AND void = 0 ORDER BY "
