@@ -138,6 +138,18 @@ def record_public(row: dict) -> dict:
 
 
 @dataclass
+class _Checked:
+    """A request's records after the checks, before the store: the reports of the records
+    that failed (by position), and the valid ones with their positions."""
+
+    batch: bool
+    now: str
+    results: list[dict | None]
+    valid: list[RecordIn]
+    where: list[int]
+
+
+@dataclass
 class Monitor:
     """The monitoring service's operations over one store."""
 
@@ -188,6 +200,41 @@ class Monitor:
 
     def post_records(self, payload: Any, actor: Actor, with_state: bool) -> tuple[int, dict]:
         """Ingest one record or ``{"records": [...]}``; returns (HTTP status, body)."""
+        checked = self._check_payload(payload)
+        return self._report(checked, self.store.ingest(*self._ingest_args(checked, actor)),
+                            with_state)
+
+    def post_records_json(self, body: bytes, actor: Actor, with_state: bool) -> tuple[int, dict]:
+        """:meth:`post_records` from the request body as sent."""
+        checked = self._check_json(body)
+        return self._report(checked, self.store.ingest(*self._ingest_args(checked, actor)),
+                            with_state)
+
+    async def post_records_json_async(self, body: bytes, actor: Actor,
+                                      with_state: bool) -> tuple[int, dict]:
+        """:meth:`post_records_json` on an event loop: checks there, then awaits the group
+        commit on the store's writer thread (no worker thread per request)."""
+        checked = self._check_json(body)
+        outcomes = await self.store.ingest_async(*self._ingest_args(checked, actor))
+        return self._report(checked, outcomes, with_state)
+
+    def _check_json(self, body: bytes) -> "_Checked":
+        """A well-formed batch is validated straight from its JSON in one pass through
+        pydantic-core; any other body is parsed and checked piece by piece, which names
+        each fault."""
+        try:
+            records = _BATCH.validate_json(body).records
+        except ValidationError:
+            records = None
+        if records is None or len(records) > self.max_batch:
+            try:
+                payload = orjson.loads(body)
+            except orjson.JSONDecodeError as exc:
+                raise Invalid(f"the body is not valid JSON: {exc}", field="body") from None
+            return self._check_payload(payload)
+        return self._check(records, records, True)
+
+    def _check_payload(self, payload: Any) -> "_Checked":
         batch = isinstance(payload, dict) and "records" in payload
         if batch:
             extra = set(payload) - {"records"}
@@ -210,63 +257,48 @@ class Monitor:
         # One validation call for the whole batch; only if it fails is each record checked
         # alone, so that every bad record is reported by itself.
         try:
-            checked = _RECORDS.validate_python(items)
+            validated = _RECORDS.validate_python(items)
         except ValidationError:
-            checked = None
-        return self._ingest(items, checked, batch, actor, with_state)
+            validated = None
+        return self._check(items, validated, batch)
 
-    def post_records_json(self, body: bytes, actor: Actor, with_state: bool) -> tuple[int, dict]:
-        """:meth:`post_records` from the request body as sent.
-
-        A well-formed batch is validated straight from its JSON in one pass through
-        pydantic-core; any other body is parsed and checked piece by piece by post_records,
-        which names each fault.
-        """
-        try:
-            records = _BATCH.validate_json(body).records
-        except ValidationError:
-            records = None
-        if records is None or len(records) > self.max_batch:
-            try:
-                payload = orjson.loads(body)
-            except orjson.JSONDecodeError as exc:
-                raise Invalid(f"the body is not valid JSON: {exc}", field="body") from None
-            return self.post_records(payload, actor, with_state)
-        return self._ingest(records, records, True, actor, with_state)
-
-    def _ingest(self, items: list, checked: list[RecordCreate] | None, batch: bool, actor: Actor,
-                with_state: bool) -> tuple[int, dict]:
-        """Store the records that pass; ``checked``: all of ``items`` validated, or None."""
+    def _check(self, items: list, validated: list[RecordCreate] | None,
+               batch: bool) -> "_Checked":
+        """Each record checked; ``validated``: all of ``items`` already validated, or None."""
         now = self.clock()
         latest = format_time(parse_rfc3339(now) + timedelta(seconds=self.future_tolerance_s))
-        results: list[dict | None] = [None] * len(items)
-        valid: list[RecordIn] = []
-        where: list[int] = []
+        out = _Checked(batch=batch, now=now, results=[None] * len(items), valid=[], where=[])
         for i, raw in enumerate(items):
             try:
-                if checked is None:
+                if validated is None:
                     if not isinstance(raw, dict):
                         raise Invalid("a record must be a JSON object", field="")
                     rec = RecordCreate.model_validate(raw)
                 else:
-                    rec = checked[i]
-                valid.append(self._record_in(rec, latest))
-                where.append(i)
+                    rec = validated[i]
+                out.valid.append(self._record_in(rec, latest))
+                out.where.append(i)
             except ValidationError as exc:
-                results[i] = self._invalid(i, raw, validation_errors(exc, _prefix(i, batch)))
+                out.results[i] = self._invalid(i, raw, validation_errors(exc, _prefix(i, batch)))
             except Invalid as exc:
                 prefix, field = _prefix(i, batch), exc.extra.get("field", "body")
                 if not field.startswith(prefix) or not field:
                     field = (prefix + field).rstrip(".") or "body"
-                results[i] = self._invalid(i, raw, [{"field": field, "message": exc.detail}])
-        rejected_before = len(items) - len(valid)
-        if valid:
-            outcomes = self.store.ingest(valid, actor[0], now, rejected_before=rejected_before)
-        else:
-            self.store.bump("records_rejected", rejected_before)
-            outcomes = []
+                out.results[i] = self._invalid(i, raw, [{"field": field, "message": exc.detail}])
+        return out
+
+    @staticmethod
+    def _ingest_args(checked: "_Checked", actor: Actor) -> tuple:
+        return (checked.valid, actor[0], checked.now,
+                len(checked.results) - len(checked.valid))
+
+    def _report(self, checked: "_Checked", outcomes: list, with_state: bool) -> tuple[int, dict]:
+        """(HTTP status, body) from the checks and the store's outcomes."""
+        batch, results = checked.batch, checked.results
         states: dict[str, dict] = {}
-        for pos, out in zip(where, outcomes):
+        counts = {"accepted": 0, "duplicate": 0, "conflict": 0, "invalid": 0}
+        for pos, out in zip(checked.where, outcomes):
+            counts[out.status] += 1
             result = {"index": pos, "record_id": out.record_id, "status": out.status,
                       "code": _CODES[out.status], "seq": out.seq}
             if out.detail:
@@ -284,8 +316,6 @@ class Monitor:
                 raise cls(only["errors"][0]["message"], errors=only["errors"],
                           record_id=only["record_id"])
             return only["code"], only
-        counts = {s: sum(1 for r in results if r["status"] == s)
-                  for s in ("accepted", "duplicate")}
         return 200, {"accepted": counts["accepted"], "duplicate": counts["duplicate"],
                      "rejected": len(results) - counts["accepted"] - counts["duplicate"],
                      "results": results}

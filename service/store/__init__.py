@@ -21,6 +21,7 @@ import sqlite_utils
 from ..errors import Conflict, Invalid, NotFound
 from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
 from ..stats import MONITORING, SprtPlan
+from .group_commit import GroupCommitter, Job
 from .migrations import migrate
 from .outbox import OutboxMixin, SessionMixin
 
@@ -92,22 +93,6 @@ class IngestOutcome(NamedTuple):
     field: str | None = None
 
 
-class _Job:
-    """One caller's records waiting for a group commit."""
-
-    def __init__(self, items, key_label, now, rejected_before):
-        self.items, self.key_label, self.now = items, key_label, now
-        self.rejected_before = rejected_before
-        self.outcomes: list[IngestOutcome] | None = None
-        self.error: Exception | None = None
-        self.done = False
-
-    def result(self) -> list[IngestOutcome]:
-        if self.error is not None:
-            raise self.error
-        return self.outcomes
-
-
 _INSERT_RECORDS = (
     "INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, observed_utc, "
     "received_at, units, nonconforming, unit_ref, inspector, note, counted, key_label, void) "
@@ -139,8 +124,7 @@ class Store(OutboxMixin, SessionMixin):
         self.path.parent.mkdir(parents=True, exist_ok=True)
         self._local = threading.local()
         self._writer = threading.Lock()
-        self._queue_lock = threading.Lock()
-        self._queue: list[_Job] = []
+        self._committer = GroupCommitter(self._commit_group, on_exit=self._close_connection)
 
     # -- connections and transactions ------------------------------------
     def _conn(self) -> sqlite3.Connection:
@@ -181,6 +165,11 @@ class Store(OutboxMixin, SessionMixin):
         return _rows(self._conn().execute(sql, params))
 
     def close(self) -> None:
+        """Stop the writer thread (after what is queued) and close this thread's connection."""
+        self._committer.stop()
+        self._close_connection()
+
+    def _close_connection(self) -> None:
         conn = getattr(self._local, "conn", None)
         if conn is not None:
             conn.close()
@@ -416,20 +405,23 @@ class Store(OutboxMixin, SessionMixin):
         post-decision record if the cycle has stopped); the same id with the same
         content is a duplicate and is not counted again; the same id with other
         content is a conflict. ``rejected_before`` counts records of the request
-        that failed validation, for the metrics.
+        that failed validation, for the metrics (``items`` may be empty).
 
-        Group commit: requests that arrive while another is committing wait in a queue,
-        and the next thread to get the write lock commits all of them in one transaction
-        (one fsync). Each caller returns only after its records are committed.
+        Group commit (:mod:`.group_commit`): the writer thread commits every request
+        waiting at that moment in one transaction (one fsync); each caller returns only
+        after its records are committed.
         """
-        job = _Job(items, key_label, now, rejected_before)
-        with self._queue_lock:
-            self._queue.append(job)
+        return self._committer.run(Job(items, key_label, now, rejected_before)).result()
+
+    async def ingest_async(self, items: list[RecordIn], key_label: str | None, now: str,
+                           rejected_before: int = 0) -> list[IngestOutcome]:
+        """:meth:`ingest` for code on an event loop: awaits the commit without a thread."""
+        job = await self._committer.run_async(Job(items, key_label, now, rejected_before))
+        return job.result()
+
+    def _commit_group(self, jobs: list[Job]) -> None:
+        """On the writer thread: all jobs in one transaction, or each alone if that fails."""
         with self._writer:
-            if job.done:
-                return job.result()
-            with self._queue_lock:
-                jobs, self._queue = self._queue, []
             try:
                 with self._transaction() as conn:
                     for j in jobs:
@@ -437,16 +429,14 @@ class Store(OutboxMixin, SessionMixin):
             except Exception:
                 # something failed: commit each job alone, so one cannot sink the others
                 for j in jobs:
+                    j.outcomes = None
                     try:
                         with self._transaction() as conn:
                             j.outcomes = self._ingest_tx(conn, j)
                     except Exception as exc:  # reported to that job's caller only
                         j.error = exc
-            for j in jobs:
-                j.done = True
-        return job.result()
 
-    def _ingest_tx(self, conn, job: "_Job") -> list[IngestOutcome]:
+    def _ingest_tx(self, conn, job: Job) -> list[IngestOutcome]:
         """One job's records, inside the write transaction the caller holds."""
         items, key_label, now = job.items, job.key_label, job.now
         stored = self._stored_content(conn, list({it.record_id for it in items}))

@@ -1,0 +1,165 @@
+"""The writer thread's group commit: every caller is answered once its records are stored,
+concurrent callers share commits, one failing job sinks nobody else, and a caller that gives
+up still has its records kept."""
+import asyncio
+import sqlite3
+import threading
+import time
+
+import pytest
+
+from service.monitor import Evidence, replay
+from service.store import RecordIn, plan_of
+from service.store.group_commit import GroupCommitter, Job
+
+from .test_store_schema import _monitor
+
+NOW = "2026-12-01T08:00:00.000000Z"
+
+
+def _store_with_facility(tmp_path, fid="G-1"):
+    m = _monitor(tmp_path / "group.db")
+    m.store.migrate()
+    m.store.add_facility(fid, "Northgate Weighbridge Co", "dispensers",
+                         m.plans.snapshot("dispensers"), NOW, ("test", "admin"))
+    return m.store
+
+
+def _rec(rid, fid="G-1", bad=0):
+    return RecordIn(rid, fid, "2026-11-30T09:00:00Z", "2026-11-30T09:00:00.000000Z", 1, bad)
+
+
+def _commits(store, monkeypatch, delay=0.0):
+    """Record the size of each group the writer commits (the first one slowed down)."""
+    sizes = []
+    real = store._commit_group
+
+    def counting(jobs):
+        sizes.append(len(jobs))
+        if len(sizes) == 1:
+            time.sleep(delay)
+        real(jobs)
+
+    monkeypatch.setattr(store._committer, "_commit", counting)
+    return sizes
+
+
+def test_concurrent_async_callers_share_commits_and_each_is_stored_once(tmp_path, monkeypatch):
+    store = _store_with_facility(tmp_path)
+    sizes = _commits(store, monkeypatch, delay=0.2)   # the others queue behind the first
+
+    async def main():
+        return await asyncio.gather(*(store.ingest_async([_rec(f"a-{i}")], "t", NOW)
+                                      for i in range(60)))
+
+    outcomes = asyncio.run(main())
+    assert [o[0].status for o in outcomes] == ["accepted"] * 60
+    assert sum(sizes) == 60 and len(sizes) < 60 and max(sizes) > 1
+    seqs = sorted(o[0].seq for o in outcomes)
+    assert seqs == list(range(seqs[0], seqs[0] + 60))          # each stored once, no gaps
+    assert store.facility("G-1")["record_count"] == 60
+    store.close()
+
+
+def test_threads_and_the_event_loop_share_one_writer(tmp_path):
+    store = _store_with_facility(tmp_path)
+    got = []
+
+    def from_thread(k):
+        got.extend(o.status for o in store.ingest([_rec(f"t{k}-{i}") for i in range(5)], "t",
+                                                  NOW))
+
+    threads = [threading.Thread(target=from_thread, args=(k,)) for k in range(8)]
+    for t in threads:
+        t.start()
+
+    async def main():
+        outs = await asyncio.gather(*(store.ingest_async([_rec(f"e-{i}")], "t", NOW)
+                                      for i in range(20)))
+        return [o[0].status for o in outs]
+
+    got.extend(asyncio.run(main()))
+    for t in threads:
+        t.join()
+    assert got.count("accepted") == 60
+    rows = store.read("SELECT seq, units, nonconforming, received_at FROM records "
+                      "WHERE facility_id = 'G-1' ORDER BY seq")
+    state, _ = replay(plan_of(store.cycle("G-1", 1)["plan_json"]),
+                      [Evidence(r["seq"], r["units"], r["nonconforming"], r["received_at"])
+                       for r in rows])
+    stored = store.facility("G-1")
+    assert len(rows) == stored["record_count"] == 60
+    assert (state.status, state.units) == (stored["status"], stored["units"])
+    store.close()
+
+
+def test_a_failing_job_is_reported_to_its_caller_only(tmp_path, monkeypatch):
+    store = _store_with_facility(tmp_path)
+    real = store._ingest_tx
+
+    def poisoned(conn, job):
+        if job.items and job.items[0].record_id == "poison":
+            raise sqlite3.OperationalError("disk I/O error (injected)")
+        return real(conn, job)
+
+    monkeypatch.setattr(store, "_ingest_tx", poisoned)
+    sizes = _commits(store, monkeypatch, delay=0.2)
+
+    async def main():
+        return await asyncio.gather(
+            *(store.ingest_async([_rec(f"ok-{i}")], "t", NOW) for i in range(5)),
+            store.ingest_async([_rec("poison")], "t", NOW),
+            *(store.ingest_async([_rec(f"ok-{i}")], "t", NOW) for i in range(5, 10)),
+            return_exceptions=True)
+
+    results = asyncio.run(main())
+    assert max(sizes) > 1                              # the poison shared a group with others
+    assert isinstance(results[5], sqlite3.OperationalError)
+    good = results[:5] + results[6:]
+    assert all(r[0].status == "accepted" for r in good)
+    assert store.facility("G-1")["record_count"] == 10
+    assert not store.read("SELECT 1 FROM records WHERE record_id = 'poison'")
+    store.close()
+
+
+def test_a_caller_that_gives_up_still_has_its_records_kept(tmp_path, monkeypatch):
+    store = _store_with_facility(tmp_path)
+    _commits(store, monkeypatch, delay=0.3)
+
+    async def main():
+        task = asyncio.create_task(store.ingest_async([_rec("gave-up")], "t", NOW))
+        await asyncio.sleep(0.05)
+        task.cancel()
+        with pytest.raises(asyncio.CancelledError):
+            await task
+        await asyncio.sleep(0.5)                        # the writer finishes regardless
+
+    asyncio.run(main())
+    assert store.record("gave-up")["seq"] >= 1
+    # a retry is a duplicate, not a second count
+    assert store.ingest([_rec("gave-up")], "t", NOW)[0].status == "duplicate"
+    assert store.facility("G-1")["units"] == 1
+    store.close()
+
+
+def test_the_writer_stops_on_close_and_restarts_when_needed(tmp_path):
+    store = _store_with_facility(tmp_path)
+    assert store.ingest([_rec("before")], "t", NOW)[0].status == "accepted"
+    writer = store._committer._thread
+    assert writer is not None and writer.is_alive()
+    store.close()
+    assert not writer.is_alive()
+    assert store.ingest([_rec("after")], "t", NOW)[0].status == "accepted"
+    assert store._committer._thread.is_alive() and store._committer._thread is not writer
+    store.close()
+
+
+def test_an_error_outside_any_job_never_leaves_a_caller_waiting():
+    def broken(jobs):
+        raise KeyboardInterrupt            # not an Exception: still reported, not hung on
+
+    committer = GroupCommitter(broken, on_exit=lambda: None)
+    job = committer.run(Job([], "t", NOW, 0))
+    with pytest.raises(KeyboardInterrupt):
+        job.result()
+    committer.stop()
