@@ -324,7 +324,7 @@ def main() -> int:
         results = {
             "single": single_record(folder, config, 400 if q else 2000, args.concurrency),
             "batch": batched(folder, config, 5 if q else 10, rounds=2 if q else 3),
-            "history": history(folder, 10_000 if q else 100_000, 100 if q else 300),
+            "history": history(folder, 10_000 if q else 100_000, 100 if q else 200, rounds=9),
             "replay": replay(folder, 100_000 if q else 1_000_000, 100 if q else 1000),
         }
     finally:

@@ -204,16 +204,11 @@ class Monitor:
         return self._report(checked, self.store.ingest(*self._ingest_args(checked, actor)),
                             with_state)
 
-    def post_records_json(self, body: bytes, actor: Actor, with_state: bool) -> tuple[int, dict]:
-        """:meth:`post_records` from the request body as sent."""
-        checked = self._check_json(body)
-        return self._report(checked, self.store.ingest(*self._ingest_args(checked, actor)),
-                            with_state)
-
     async def post_records_json_async(self, body: bytes, actor: Actor,
                                       with_state: bool) -> tuple[int, dict]:
-        """:meth:`post_records_json` on an event loop: checks there, then awaits the group
-        commit on the store's writer thread (no worker thread per request)."""
+        """:meth:`post_records` from the request body as sent, on an event loop: checks
+        there, then awaits the group commit on the store's writer thread (no worker thread
+        per request)."""
         checked = self._check_json(body)
         outcomes = await self.store.ingest_async(*self._ingest_args(checked, actor))
         return self._report(checked, outcomes, with_state)

@@ -1,6 +1,6 @@
-"""The writer thread's group commit: every caller is answered once its records are stored,
-concurrent callers share commits, one failing job sinks nobody else, and a caller that gives
-up still has its records kept."""
+"""The writer thread's group commit for request handlers: every caller is answered once its
+records are stored, concurrent callers share commits, one failing job sinks nobody else, and
+a caller that gives up still has its records kept."""
 import asyncio
 import sqlite3
 import threading
@@ -61,7 +61,9 @@ def test_concurrent_async_callers_share_commits_and_each_is_stored_once(tmp_path
     store.close()
 
 
-def test_threads_and_the_event_loop_share_one_writer(tmp_path):
+def test_threads_committing_inline_and_the_writer_thread_take_turns(tmp_path):
+    # blocking callers commit in their own thread, request handlers through the writer:
+    # the store's write lock keeps the two apart, and nothing is lost or counted twice
     store = _store_with_facility(tmp_path)
     got = []
 
@@ -89,6 +91,7 @@ def test_threads_and_the_event_loop_share_one_writer(tmp_path):
                        for r in rows])
     stored = store.facility("G-1")
     assert len(rows) == stored["record_count"] == 60
+    assert [r["seq"] for r in rows] == list(range(rows[0]["seq"], rows[0]["seq"] + 60))
     assert (state.status, state.units) == (stored["status"], stored["units"])
     store.close()
 
@@ -144,12 +147,16 @@ def test_a_caller_that_gives_up_still_has_its_records_kept(tmp_path, monkeypatch
 
 def test_the_writer_stops_on_close_and_restarts_when_needed(tmp_path):
     store = _store_with_facility(tmp_path)
-    assert store.ingest([_rec("before")], "t", NOW)[0].status == "accepted"
+
+    def post(rid):
+        return asyncio.run(store.ingest_async([_rec(rid)], "t", NOW))[0].status
+
+    assert post("before") == "accepted"
     writer = store._committer._thread
     assert writer is not None and writer.is_alive()
     store.close()
     assert not writer.is_alive()
-    assert store.ingest([_rec("after")], "t", NOW)[0].status == "accepted"
+    assert post("after") == "accepted"
     assert store._committer._thread.is_alive() and store._committer._thread is not writer
     store.close()
 
@@ -159,7 +166,7 @@ def test_an_error_outside_any_job_never_leaves_a_caller_waiting():
         raise KeyboardInterrupt            # not an Exception: still reported, not hung on
 
     committer = GroupCommitter(broken, on_exit=lambda: None)
-    job = committer.run(Job([], "t", NOW, 0))
+    job = asyncio.run(committer.run_async(Job([], "t", NOW, 0)))
     with pytest.raises(KeyboardInterrupt):
         job.result()
     committer.stop()

@@ -407,15 +407,19 @@ class Store(OutboxMixin, SessionMixin):
         content is a conflict. ``rejected_before`` counts records of the request
         that failed validation, for the metrics (``items`` may be empty).
 
-        Group commit (:mod:`.group_commit`): the writer thread commits every request
-        waiting at that moment in one transaction (one fsync); each caller returns only
-        after its records are committed.
+        This blocking form commits in the calling thread (imports, the demo, scripts);
+        it returns once the records are committed. Never call it inside :meth:`write`.
         """
-        return self._committer.run(Job(items, key_label, now, rejected_before)).result()
+        job = Job(items, key_label, now, rejected_before)
+        self._commit_group([job])
+        return job.result()
 
     async def ingest_async(self, items: list[RecordIn], key_label: str | None, now: str,
                            rejected_before: int = 0) -> list[IngestOutcome]:
-        """:meth:`ingest` for code on an event loop: awaits the commit without a thread."""
+        """:meth:`ingest` for request handlers on an event loop, with group commit
+        (:mod:`.group_commit`): the store's writer thread commits every request waiting at
+        that moment in one transaction (one fsync); each caller is answered only after its
+        records are committed."""
         job = await self._committer.run_async(Job(items, key_label, now, rejected_before))
         return job.result()
 

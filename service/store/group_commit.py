@@ -1,7 +1,6 @@
 """Group commit: one writer thread per store commits whatever records have queued.
 
-A caller (a request handler on the event loop, or any thread) puts its job on a queue and
-waits. The writer thread takes every job that is waiting, writes them all in one
+A request handler on the event loop puts its job on a queue and awaits it. The writer thread takes every job that is waiting, writes them all in one
 transaction (one fsync) and then tells each caller, who is answered only after its records
 are on disk. Handlers on the event loop await the commit without a worker thread of their
 own, so a request costs no thread hand-over and the GIL has two contenders, not dozens.
@@ -52,14 +51,6 @@ class GroupCommitter:
         self._jobs: queue.SimpleQueue = queue.SimpleQueue()
         self._thread: threading.Thread | None = None
         self._lock = threading.Lock()
-
-    def run(self, job: Job) -> Job:
-        """Queue ``job`` and block until it is committed (or has failed)."""
-        done = threading.Event()
-        job.notify = done.set
-        self._submit(job)
-        done.wait()
-        return job
 
     async def run_async(self, job: Job) -> Job:
         """Queue ``job`` and await its commit. If the awaiting task is cancelled the job is
