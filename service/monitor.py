@@ -21,8 +21,8 @@ DECIDED = (FLAGGED, CLEARED)
 class CycleState(NamedTuple):
     """What a cycle knows after its evidence so far.
 
-    Immutable value types here are named tuples: on the ingest path one is made per record,
-    and a named tuple is built several times faster than a frozen dataclass.
+    Immutable value types here are named tuples: a replay makes one per record, and a named
+    tuple is built several times faster than a frozen dataclass.
     """
 
     status: str = MONITORING
