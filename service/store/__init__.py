@@ -84,7 +84,8 @@ _CONTENT_COLUMNS = "facility_id, observed_utc, units, nonconforming, unit_ref, i
 
 
 class IngestOutcome(NamedTuple):
-    index: int
+    """What became of one record; ingest returns them in the order of its items."""
+
     record_id: str
     status: str                 # accepted | duplicate | conflict | invalid
     seq: int | None = None
@@ -103,6 +104,18 @@ _INSERT_RECORDS = (
 # With an adapter registered for None the lookup succeeds and None still binds as NULL.
 # None is not a base type, so this keeps the module's fast path for int, float and str.
 sqlite3.register_adapter(type(None), lambda value: None)
+
+
+def _where_in(conn, sql: str, values: list, cursors: bool = False):
+    """Rows of ``sql`` (with ``{marks}`` in its IN list) for all ``values``, queried in
+    chunks that stay under SQLite's limit on parameters; the cursors if ``cursors``."""
+    for i in range(0, len(values), _IN_CHUNK):
+        part = values[i:i + _IN_CHUNK]
+        cur = conn.execute(sql.format(marks=",".join("?" * len(part))), part)
+        if cursors:
+            yield cur
+        else:
+            yield from cur
 
 
 def _state_of(row: dict) -> CycleState:
@@ -450,7 +463,7 @@ class Store(OutboxMixin, SessionMixin):
         runs: dict[str, tuple[list, list, list, list]] = {}   # facility -> its new records
         inserts, alerts, outcomes = [], [], []
         duplicates = rejected = 0
-        for index, it in enumerate(items):
+        for it in items:
             rid = it.record_id
             earlier = batch.get(rid)
             if earlier is not None:
@@ -464,18 +477,18 @@ class Store(OutboxMixin, SessionMixin):
             if same is not None:
                 if same:
                     duplicates += 1
-                    outcomes.append(IngestOutcome(index, rid, "duplicate", old_seq, old_fid))
+                    outcomes.append(IngestOutcome(rid, "duplicate", old_seq, old_fid))
                 else:
                     rejected += 1
                     outcomes.append(IngestOutcome(
-                        index, rid, "conflict", old_seq, old_fid, f"record_id {rid!r} was "
+                        rid, "conflict", old_seq, old_fid, f"record_id {rid!r} was "
                         "already used for a record with different content; use a new "
                         "record_id for a new record", "record_id"))
                 continue
             cyc = cycles.get(it.facility_id)
             if cyc is None:
                 rejected += 1
-                outcomes.append(IngestOutcome(index, rid, "invalid", None, None,
+                outcomes.append(IngestOutcome(rid, "invalid", None, None,
                                               f"no facility {it.facility_id!r} is registered",
                                               "facility_id"))
                 continue
@@ -491,7 +504,7 @@ class Store(OutboxMixin, SessionMixin):
                             it.observed_utc, now, it.units, it.nonconforming, it.unit_ref,
                             it.inspector, it.note, 1, key_label))
             batch[rid] = (it, seq)
-            outcomes.append(IngestOutcome(index, rid, "accepted", seq, it.facility_id))
+            outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id))
         # each facility's new records in receipt order, as one run through the pure update
         decided = []
         for fid, (positions, seqs, units, bad) in runs.items():
@@ -520,25 +533,18 @@ class Store(OutboxMixin, SessionMixin):
     @staticmethod
     def _stored_content(conn, ids: list[str]) -> dict[str, tuple[tuple, int]]:
         """record_id -> (content, seq) of the stored records among ``ids``."""
-        out = {}
-        for i in range(0, len(ids), _IN_CHUNK):
-            part = ids[i:i + _IN_CHUNK]
-            for rid, seq, *content in conn.execute(
-                    f"SELECT record_id, seq, {_CONTENT_COLUMNS} FROM records "
-                    f"WHERE record_id IN ({','.join('?' * len(part))})", part):
-                out[rid] = (tuple(content), seq)
-        return out
+        return {rid: (tuple(content), seq) for rid, seq, *content in _where_in(
+            conn, f"SELECT record_id, seq, {_CONTENT_COLUMNS} FROM records "
+                  "WHERE record_id IN ({marks})", ids)}
 
     @staticmethod
     def _current_cycles(conn, facility_ids: list[str]) -> dict[str, dict]:
         """facility_id -> its current cycle row, with the plan and state decoded."""
         out = {}
-        for i in range(0, len(facility_ids), _IN_CHUNK):
-            part = facility_ids[i:i + _IN_CHUNK]
-            cur = conn.execute(
-                "SELECT c.* FROM facilities f JOIN cycles c ON c.facility_id = f.facility_id "
-                f"AND c.cycle = f.current_cycle WHERE f.facility_id IN "
-                f"({','.join('?' * len(part))})", part)
+        for cur in _where_in(conn, "SELECT c.* FROM facilities f JOIN cycles c ON "
+                                   "c.facility_id = f.facility_id AND c.cycle = "
+                                   "f.current_cycle WHERE f.facility_id IN ({marks})",
+                             facility_ids, cursors=True):
             for row in _rows(cur):
                 row["_plan"] = plan_of(row["plan_json"])
                 row["_state"] = _state_of(row)
