@@ -57,11 +57,33 @@ class StopPoint:
     log_count: float
 
 
+def _convolve_log(logk: np.ndarray, lc: np.ndarray) -> np.ndarray:
+    """``out[t] = log sum_{i + j = t} exp(logk[i] + lc[j])`` in memory linear in the sizes.
+
+    The shorter of the two arrays is walked one entry at a time and each step adds a
+    shifted copy of the longer one with :func:`numpy.logaddexp`, so memory is
+    ``O(len(logk) + len(lc))`` and time ``O(len(logk) * len(lc))``; no
+    ``len(logk) x len(lc)`` grid is ever built.
+    """
+    short, long_ = (logk, lc) if logk.size <= lc.size else (lc, logk)
+    out = np.full(logk.size + lc.size - 1, -np.inf)
+    width = long_.size
+    for i, v in enumerate(short.tolist()):
+        if v == -np.inf:
+            continue
+        part = out[i:i + width]
+        np.logaddexp(part, long_ + v, out=part)
+    return out
+
+
 class LookCounts:
     """Log-counts of unit paths that stop at each (look, d), for given look sizes.
 
     A look of ``m`` units moves the count from d to d + j in C(m, j) ways; after each look
-    the plan's boundaries (and, at or beyond the cap, the cut rule) decide.
+    the plan's boundaries (and, at or beyond the cap, the cut rule) decide. Memory is linear
+    in the number of units: the open counts are convolved with the binomial coefficients
+    without a two-dimensional grid (:func:`_convolve_log`), and the stop points are kept as
+    flat arrays (``look``, ``n``, ``d``, ``flag``, ``log_count``).
     """
 
     def __init__(self, plan: SprtPlan, sizes: list[int]):
@@ -69,24 +91,19 @@ class LookCounts:
             raise ValueError("every look holds at least one unit")
         self.plan = plan
         self.sizes = [int(m) for m in sizes]
-        self.points: list[StopPoint] = []
         self.open_at_end: tuple[int, np.ndarray, np.ndarray] | None = None
         self._run()
 
     def _run(self) -> None:
         plan = self.plan
-        d = np.array([0])
+        d0 = 0
         logk = np.array([0.0])
         n = 0
+        looks, ns, ds, flags, ks = [], [], [], [], []
+        d = np.array([0])
         for look, m in enumerate(self.sizes, start=1):
-            # convolve with C(m, j): new[d'] = logsumexp_j old[d' - j] + log C(m, j)
-            lc = _log_choose(m)
-            width = d.size + m
-            grid = np.full((m + 1, width), -np.inf)
-            for j in range(m + 1):
-                grid[j, j:j + d.size] = logk + lc[j]
-            logk = logsumexp(grid, axis=0)
-            d = np.arange(d[0], d[0] + width)
+            logk = _convolve_log(logk, _log_choose(m))
+            d = np.arange(d0, d0 + logk.size)
             n += m
             llr = plan.llr(n, d)
             up = llr >= plan.upper_llr - BOUNDARY_TOL
@@ -94,28 +111,70 @@ class LookCounts:
             if plan.max_units is not None and n >= plan.max_units:
                 cut = llr >= plan.cut_llr - BOUNDARY_TOL
                 up, down = up | (~down & cut), down | (~up & ~cut)
+            finite = logk > -np.inf
             for flag, mask in ((True, up), (False, down)):
-                for dd, k in zip(d[mask].tolist(), logk[mask].tolist()):
-                    if k > -np.inf:
-                        self.points.append(StopPoint(look, n, dd, flag, k))
+                sel = mask & finite
+                count = int(sel.sum())
+                if count:
+                    looks.append(np.full(count, look))
+                    ns.append(np.full(count, n))
+                    ds.append(d[sel])
+                    flags.append(np.full(count, flag))
+                    ks.append(logk[sel])
             keep = ~(up | down)
             d, logk = d[keep], logk[keep]
             if d.size == 0:
                 break
+            d0 = int(d[0])
+            # between two parallel lines the open d form one run; should they ever not,
+            # the gaps are filled with zero paths so that index i still means d0 + i
+            if d.size != int(d[-1]) - d0 + 1:
+                full = np.full(int(d[-1]) - d0 + 1, -np.inf)
+                full[d - d0] = logk
+                logk = full
+                d = np.arange(d0, d0 + full.size)
         self.open_at_end = (n, d, logk)
+        cat = lambda parts, kind: (np.concatenate(parts) if parts
+                                   else np.zeros(0, dtype=kind))
+        self.look = cat(looks, np.int64)
+        self.n = cat(ns, np.int64)
+        self.d = cat(ds, np.int64)
+        self.flag = cat(flags, bool)
+        self.log_count = cat(ks, float)
 
-    def mass(self, points: list[StopPoint], p) -> np.ndarray:
-        """Probability of the given stop points at each rate in ``p``."""
+    @property
+    def points(self) -> list[StopPoint]:
+        """The stop points as objects (convenient for small plans; the arrays are the data)."""
+        return [StopPoint(int(a), int(b), int(c), bool(f), float(k)) for a, b, c, f, k in
+                zip(self.look, self.n, self.d, self.flag, self.log_count)]
+
+    def select(self, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(n, d, log_count) of the stop points where ``mask`` holds."""
+        return self.n[mask], self.d[mask], self.log_count[mask]
+
+    def mass(self, points, p) -> np.ndarray:
+        """Probability of the given stop points at each rate in ``p``.
+
+        ``points`` is a list of :class:`StopPoint` or an ``(n, d, log_count)`` triple of
+        arrays (see :meth:`select`).
+        """
         p = np.clip(np.atleast_1d(np.asarray(p, dtype=float)), 0.0, 1.0)
-        if not points:
-            return np.zeros(p.size)
-        n = np.array([s.n for s in points])
-        d = np.array([s.d for s in points])
-        k = np.array([s.log_count for s in points])
-        with np.errstate(divide="ignore", invalid="ignore"):
-            lp = np.where(d > 0, d * np.log(p[:, None]), 0.0)
-            lq = np.where(n - d > 0, (n - d) * np.log1p(-p[:, None]), 0.0)
-        return np.exp(k + lp + lq).sum(axis=1)
+        if isinstance(points, tuple):
+            n, d, k = points
+        else:
+            n = np.array([s.n for s in points], dtype=np.int64)
+            d = np.array([s.d for s in points], dtype=np.int64)
+            k = np.array([s.log_count for s in points], dtype=float)
+        return _mass(n, d, k, p)
+
+
+def _mass(n: np.ndarray, d: np.ndarray, k: np.ndarray, p: np.ndarray) -> np.ndarray:
+    if n.size == 0:
+        return np.zeros(p.size)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lp = np.where(d > 0, d * np.log(p[:, None]), 0.0)
+        lq = np.where(n - d > 0, (n - d) * np.log1p(-p[:, None]), 0.0)
+    return np.exp(k + lp + lq).sum(axis=1)
 
 
 @dataclass(frozen=True)
@@ -153,21 +212,20 @@ class _Ordering:
     """p_up and p_down of the observed stop under the stagewise ordering."""
 
     def __init__(self, counts: LookCounts, observed: StopPoint, at_cap: bool):
-        pts = counts.points
+        look, d, flag = counts.look, counts.d, counts.flag
         last = observed.look
+        here = look == last
         if at_cap:
             # flags before the final look, then the final look by d (larger first)
-            self.up = [s for s in pts if (s.flag and s.look < last)
-                       or (s.look == last and s.d >= observed.d)]
+            self.up = counts.select((flag & (look < last)) | (here & (d >= observed.d)))
         elif observed.flag:
-            self.up = [s for s in pts if s.flag and (s.look < last or
-                                                     (s.look == last and s.d >= observed.d))]
+            self.up = counts.select(flag & ((look < last) | (here & (d >= observed.d))))
         else:
-            self.down = [s for s in pts if not s.flag and (s.look < last or
-                                                           (s.look == last and s.d < observed.d))]
+            self.down = counts.select(~flag & ((look < last) | (here & (d < observed.d))))
             self.up = None
         self.counts, self.observed = counts, observed
-        self.exact = [observed]
+        self.exact = (np.array([observed.n]), np.array([observed.d]),
+                      np.array([observed.log_count]))
 
     def p_up(self, p) -> np.ndarray:
         if self.up is not None:
@@ -227,10 +285,12 @@ def infer(plan: SprtPlan, sizes: list[int], bad: list[int], level: float = 0.95,
         if (llr >= plan.upper_llr - BOUNDARY_TOL or llr <= plan.lower_llr + BOUNDARY_TOL
                 or (plan.max_units is not None and running_n >= plan.max_units)):
             raise ValueError(f"the records already decided after {running_n} units")
-    stops = [s for s in counts.points if s.look == len(sizes) and s.d == d]
-    if not stops:
+    at = np.flatnonzero((counts.look == len(sizes)) & (counts.d == d))
+    if at.size == 0:
         raise ValueError(f"the records ({n} units, {d} nonconforming) do not end in a decision")
-    observed = stops[0]
+    i = int(at[0])
+    observed = StopPoint(len(sizes), int(counts.n[i]), d, bool(counts.flag[i]),
+                         float(counts.log_count[i]))
     llr = plan.llr(n, d)
     at_cap = bool(plan.max_units is not None and n >= plan.max_units
                   and plan.lower_llr + BOUNDARY_TOL < llr < plan.upper_llr - BOUNDARY_TOL)
