@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import json
 
+from ..alerting import AlertDraft
 from ..errors import Conflict, NotFound
 
 # Alerts about delivery itself are never sent to webhooks (a dead receiver would loop).
@@ -132,8 +133,9 @@ class OutboxMixin:
                                     (outbox_id,)).fetchone()[0]
                 self.disable_webhook(hook, disable_reason, at, conn=conn)
             if failed_alert is not None:
-                self._insert_alerts(conn, [("delivery_failed", failed_alert["facility_id"],
-                                            failed_alert["cycle"], at, failed_alert)])
+                self._insert_alerts(conn, [AlertDraft("delivery_failed",
+                                                      failed_alert["facility_id"],
+                                                      failed_alert["cycle"], failed_alert)], at)
 
     def deliveries(self, hook_id: int, limit: int = 100, offset: int = 0) -> tuple[list[dict], int]:
         self.webhook(hook_id)
@@ -245,7 +247,7 @@ class OutboxMixin:
             if conn.execute("SELECT 1 FROM alerts WHERE facility_id = ? AND cycle = ? AND "
                             "kind = 'stale'", (facility_id, cycle)).fetchone():
                 return False
-            self._insert_alerts(conn, [("stale", facility_id, cycle, now, detail)])
+            self._insert_alerts(conn, [AlertDraft("stale", facility_id, cycle, detail)], now)
             return True
 
     def remonitor_candidates(self, cutoff_by_plan: dict[str, str]) -> list[dict]:

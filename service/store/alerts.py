@@ -1,0 +1,52 @@
+"""Alerts: insert (with their webhook outbox rows), list, acknowledge."""
+from __future__ import annotations
+
+import json
+
+from ..alerting import AlertDraft
+from ..errors import Conflict, NotFound
+
+
+class AlertsMixin:
+    def _insert_alerts(self, conn, alerts: list[AlertDraft], now: str) -> list[int]:
+        """Insert alerts and, in the same transaction, their webhook outbox rows."""
+        ids = []
+        for kind, fid, cycle, detail in alerts:
+            cur = conn.execute("INSERT INTO alerts (kind, facility_id, cycle, created_at, state, "
+                               "detail) VALUES (?, ?, ?, ?, 'open', ?)",
+                               (kind, fid, cycle, now, json.dumps(detail, sort_keys=True)))
+            ids.append(cur.lastrowid)
+            self._enqueue(conn, cur.lastrowid, kind, fid, cycle, detail, now)
+        return ids
+
+    def alerts(self, state=None, kind=None, facility_id=None, limit=100,
+               offset=0) -> tuple[list[dict], int]:
+        return self._page("alerts", "alert_id DESC",
+                          {"state": state, "kind": kind, "facility_id": facility_id},
+                          limit, offset)
+
+    def alert(self, alert_id: int) -> dict:
+        rows = self.read("SELECT * FROM alerts WHERE alert_id = ?", (alert_id,))
+        if not rows:
+            raise NotFound(f"no alert {alert_id}")
+        rows[0]["detail"] = json.loads(rows[0]["detail"])
+        return rows[0]
+
+    def ack_alert(self, alert_id: int, note: str | None, now: str, actor) -> dict:
+        with self.write() as conn:
+            row = conn.execute("SELECT state, acked_at, acked_by, facility_id, cycle FROM alerts "
+                               "WHERE alert_id = ?", (alert_id,)).fetchone()
+            if row is None:
+                raise NotFound(f"no alert {alert_id}")
+            state, acked_at, acked_by, fid, cycle = row
+            if state == "acknowledged":
+                raise Conflict(f"alert {alert_id} was already acknowledged at {acked_at} by "
+                               f"{acked_by}")
+            conn.execute("UPDATE alerts SET state = 'acknowledged', acked_at = ?, acked_by = ?, "
+                         "ack_note = ? WHERE alert_id = ?", (now, actor[0], note, alert_id))
+            self._log(conn, now, actor, "alert_acknowledged", {"alert_id": alert_id, "note": note},
+                      facility_id=fid, cycle=cycle, target=str(alert_id))
+        return self.alert(alert_id)
+
+    def open_alert_count(self) -> int:
+        return self.read("SELECT COUNT(*) AS n FROM alerts WHERE state = 'open'")[0]["n"]

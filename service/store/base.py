@@ -1,0 +1,125 @@
+"""Connections, write transactions, counters and the action log: what every part of the
+store builds on.
+
+Every change of a facility (records, cycle state, alerts, action log) is written in one
+``BEGIN IMMEDIATE`` transaction, so several worker processes on one file serialise their
+updates and a crash leaves either all or none of a request's writes. Reads use the WAL
+snapshot of the moment.
+"""
+from __future__ import annotations
+
+import json
+import sqlite3
+import threading
+from contextlib import contextmanager
+from pathlib import Path
+
+import sqlite_utils
+
+from .common import rows_of
+from .group_commit import GroupCommitter
+from .migrations import migrate
+
+
+class StoreBase:
+    """Access to one SQLite file; safe to share between threads (one connection each)."""
+
+    def __init__(self, path: str | Path):
+        self.path = Path(path)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        self._local = threading.local()
+        self._writer = threading.Lock()
+        self._committer = GroupCommitter(self._commit_group, on_exit=self._close_connection)
+
+    # -- connections and transactions ------------------------------------
+    def _conn(self) -> sqlite3.Connection:
+        conn = getattr(self._local, "conn", None)
+        if conn is None:
+            conn = sqlite3.connect(self.path, isolation_level=None, timeout=30.0,
+                                   check_same_thread=False)
+            conn.execute("PRAGMA busy_timeout = 30000")
+            conn.execute("PRAGMA journal_mode = WAL")
+            conn.execute("PRAGMA synchronous = FULL")
+            self._local.conn = conn
+        return conn
+
+    @contextmanager
+    def write(self):
+        """One write transaction; the write lock is taken at BEGIN.
+
+        Threads of this process queue on a lock first: SQLite's own busy handler sleeps in
+        steps of milliseconds, which would waste most of the time when several request
+        threads want to write at once. Other processes still wait on busy_timeout.
+        """
+        with self._writer, self._transaction() as conn:
+            yield conn
+
+    @contextmanager
+    def _transaction(self):
+        """BEGIN IMMEDIATE ... COMMIT on this thread's connection; the caller holds _writer."""
+        conn = self._conn()
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            yield conn
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+        conn.execute("COMMIT")
+
+    def read(self, sql: str, params=()) -> list[dict]:
+        return rows_of(self._conn().execute(sql, params))
+
+    def close(self) -> None:
+        """Stop the writer thread (after what is queued) and close this thread's connection."""
+        self._committer.stop()
+        self._close_connection()
+
+    def _close_connection(self) -> None:
+        conn = getattr(self._local, "conn", None)
+        if conn is not None:
+            conn.close()
+            self._local.conn = None
+
+    def migrate(self) -> int:
+        with self.write() as conn:
+            return migrate(sqlite_utils.Database(conn))
+
+    # -- counters and action log -------------------------------------------
+    @staticmethod
+    def _bump(conn, name: str, by: int) -> None:
+        if by:
+            conn.execute("INSERT INTO counters (name, value) VALUES (?, ?) ON CONFLICT(name) "
+                         "DO UPDATE SET value = value + excluded.value", (name, by))
+
+    def bump(self, name: str, by: int = 1) -> None:
+        with self.write() as conn:
+            self._bump(conn, name, by)
+
+    def counters(self) -> dict[str, int]:
+        return {r["name"]: r["value"] for r in self.read("SELECT name, value FROM counters")}
+
+    @staticmethod
+    def _log(conn, now, actor, action, detail, facility_id=None, cycle=None, target=None):
+        label, role = actor
+        conn.execute("INSERT INTO actions (at, key_label, role, action, facility_id, cycle, "
+                     "target, detail) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                     (now, label, role, action, facility_id, cycle, target,
+                      json.dumps(detail, sort_keys=True)))
+
+    def actions(self, limit=100, offset=0, facility_id=None, cycle=None) -> tuple[list[dict], int]:
+        return self._page("actions", "id", {"facility_id": facility_id, "cycle": cycle},
+                          limit, offset)
+
+    def _page(self, table: str, order: str, equal: dict, limit: int, offset: int
+              ) -> tuple[list[dict], int]:
+        """Rows of a table whose columns equal the given values (None: any), one page,
+        with their JSON ``detail`` decoded, and the total count."""
+        where = [f"{column} = ?" for column, value in equal.items() if value is not None]
+        params = [value for value in equal.values() if value is not None]
+        clause = f"WHERE {' AND '.join(where)}" if where else ""
+        total = self.read(f"SELECT COUNT(*) AS n FROM {table} {clause}", params)[0]["n"]
+        rows = self.read(f"SELECT * FROM {table} {clause} ORDER BY {order} LIMIT ? OFFSET ?",
+                         [*params, limit, offset])
+        for r in rows:
+            r["detail"] = json.loads(r["detail"])
+        return rows, total

@@ -1,0 +1,143 @@
+"""Facilities and their monitoring cycles: register, list, open and close cycles."""
+from __future__ import annotations
+
+import json
+
+from ..errors import Conflict, NotFound
+from ..monitor import CLOSED
+from ..stats import MONITORING
+
+
+class FacilitiesMixin:
+    def add_facility(self, facility_id: str, name: str, plan_name: str, snapshot: dict,
+                     now: str, actor) -> None:
+        with self.write() as conn:
+            self._insert_facility(conn, facility_id, name, plan_name, snapshot, now, actor)
+
+    def _insert_facility(self, conn, facility_id, name, plan_name, snapshot, now, actor):
+        if conn.execute("SELECT 1 FROM facilities WHERE facility_id = ?",
+                        (facility_id,)).fetchone():
+            raise Conflict(f"facility {facility_id!r} is already registered",
+                           facility_id=facility_id)
+        conn.execute("INSERT INTO facilities (facility_id, name, plan, created_at, current_cycle) "
+                     "VALUES (?, ?, ?, ?, 1)", (facility_id, name, plan_name, now))
+        self._insert_cycle(conn, facility_id, 1, plan_name, snapshot, now)
+        self._log(conn, now, actor, "facility_registered",
+                  {"name": name, "plan": plan_name}, facility_id=facility_id, cycle=1)
+
+    def add_facilities(self, rows: list[tuple[str, str, str, dict]], now: str,
+                       actor) -> list[str | None]:
+        """Register many facilities in one transaction; per row None or the reason it failed."""
+        out: list[str | None] = []
+        with self.write() as conn:
+            for facility_id, name, plan_name, snapshot in rows:
+                try:
+                    conn.execute("SAVEPOINT one")
+                    self._insert_facility(conn, facility_id, name, plan_name, snapshot, now, actor)
+                    conn.execute("RELEASE one")
+                    out.append(None)
+                except Conflict as exc:
+                    conn.execute("ROLLBACK TO one")
+                    conn.execute("RELEASE one")
+                    out.append(exc.detail)
+        return out
+
+    @staticmethod
+    def _insert_cycle(conn, facility_id, cycle, plan_name, snapshot, now):
+        conn.execute("INSERT INTO cycles (facility_id, cycle, plan_name, plan_json, status, units, "
+                     "nonconforming, llr, opened_at, at_cap, record_count) "
+                     "VALUES (?, ?, ?, ?, ?, 0, 0, 0.0, ?, 0, 0)",
+                     (facility_id, cycle, plan_name, json.dumps(snapshot, sort_keys=True),
+                      MONITORING, now))
+
+    def facility(self, facility_id: str) -> dict:
+        rows = self.read("SELECT f.facility_id, f.name, f.plan, f.created_at, f.current_cycle, "
+                         "c.* FROM facilities f JOIN cycles c ON c.facility_id = f.facility_id "
+                         "AND c.cycle = f.current_cycle WHERE f.facility_id = ?", (facility_id,))
+        if not rows:
+            raise NotFound(f"no facility {facility_id!r}", facility_id=facility_id)
+        return rows[0]
+
+    def facilities(self, status=None, plan=None, search=None, sort="facility_id",
+                   descending=False, limit=100, offset=0) -> tuple[list[dict], int]:
+        where, params = [], []
+        if status is not None:
+            where.append("c.status = ?")
+            params.append(status)
+        if plan is not None:
+            where.append("f.plan = ?")
+            params.append(plan)
+        if search:
+            where.append("(f.facility_id LIKE ? ESCAPE '\\' OR f.name LIKE ? ESCAPE '\\')")
+            pattern = "%" + search.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_") + "%"
+            params += [pattern, pattern]
+        clause = f"WHERE {' AND '.join(where)}" if where else ""
+        orders = {"facility_id": "f.facility_id", "name": "f.name", "units": "c.units",
+                  "last_record_at": "c.last_record_at", "llr": "c.llr",
+                  "llr_position": "(c.llr - json_extract(c.plan_json, '$.lower_llr')) / "
+                                  "(json_extract(c.plan_json, '$.upper_llr') - "
+                                  "json_extract(c.plan_json, '$.lower_llr'))"}
+        order = orders[sort] + (" DESC" if descending else "")
+        base = ("FROM facilities f JOIN cycles c ON c.facility_id = f.facility_id "
+                f"AND c.cycle = f.current_cycle {clause}")
+        total = self.read(f"SELECT COUNT(*) AS n {base}", params)[0]["n"]
+        rows = self.read(f"SELECT f.facility_id, f.name, f.plan, f.created_at, f.current_cycle, "
+                         f"c.* {base} ORDER BY {order}, f.facility_id LIMIT ? OFFSET ?",
+                         [*params, limit, offset])
+        return rows, total
+
+    def cycles(self, facility_id: str) -> list[dict]:
+        return self.read("SELECT * FROM cycles WHERE facility_id = ? ORDER BY cycle",
+                         (facility_id,))
+
+    def cycle(self, facility_id: str, cycle: int) -> dict:
+        rows = self.read("SELECT * FROM cycles WHERE facility_id = ? AND cycle = ?",
+                         (facility_id, cycle))
+        if not rows:
+            raise NotFound(f"facility {facility_id!r} has no cycle {cycle}")
+        return rows[0]
+
+    def status_counts(self) -> dict[str, int]:
+        rows = self.read("SELECT c.status, COUNT(*) AS n FROM facilities f JOIN cycles c ON "
+                         "c.facility_id = f.facility_id AND c.cycle = f.current_cycle "
+                         "GROUP BY c.status")
+        return {r["status"]: r["n"] for r in rows}
+
+    def open_cycle(self, facility_id: str, snapshot: dict, now: str, actor) -> int:
+        with self.write() as conn:
+            row = conn.execute("SELECT f.current_cycle, c.status, f.plan FROM facilities f JOIN "
+                               "cycles c ON c.facility_id = f.facility_id AND c.cycle = "
+                               "f.current_cycle WHERE f.facility_id = ?",
+                               (facility_id,)).fetchone()
+            if row is None:
+                raise NotFound(f"no facility {facility_id!r}", facility_id=facility_id)
+            current, status, plan_name = row
+            if status == MONITORING:
+                raise Conflict(f"cycle {current} of {facility_id!r} is still being monitored; "
+                               "close it or wait for a decision before opening another")
+            new = current + 1
+            self._insert_cycle(conn, facility_id, new, plan_name, snapshot, now)
+            conn.execute("UPDATE facilities SET current_cycle = ? WHERE facility_id = ?",
+                         (new, facility_id))
+            self._log(conn, now, actor, "cycle_opened", {"previous_status": status},
+                      facility_id=facility_id, cycle=new)
+        return new
+
+    def close_cycle(self, facility_id: str, reason: str, now: str, actor) -> int:
+        with self.write() as conn:
+            row = conn.execute("SELECT f.current_cycle, c.status FROM facilities f JOIN cycles c "
+                               "ON c.facility_id = f.facility_id AND c.cycle = f.current_cycle "
+                               "WHERE f.facility_id = ?", (facility_id,)).fetchone()
+            if row is None:
+                raise NotFound(f"no facility {facility_id!r}", facility_id=facility_id)
+            current, status = row
+            if status != MONITORING:
+                raise Conflict(f"facility {facility_id!r} has no open cycle (cycle {current} is "
+                               f"{status})")
+            last = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
+            conn.execute("UPDATE cycles SET status = ?, closed_at = ?, closed_reason = ?, "
+                         "closed_seq = ? WHERE facility_id = ? AND cycle = ?",
+                         (CLOSED, now, reason, last, facility_id, current))
+            self._log(conn, now, actor, "cycle_closed", {"reason": reason},
+                      facility_id=facility_id, cycle=current)
+        return current

@@ -1,0 +1,289 @@
+"""Inspection records: ingest (group commit), a cycle's records, voids."""
+from __future__ import annotations
+
+import sqlite3
+from typing import NamedTuple
+
+from ..alerting import decision_alerts, void_alerts
+from ..errors import Conflict, NotFound
+from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
+from .common import plan_of, rows_of, state_of, where_in
+from .group_commit import Job
+
+
+class RecordIn(NamedTuple):
+    """A validated record as posted (observed_utc is the normalised instant).
+
+    A named tuple, like the other per-record values: cheap to build a thousand times a request.
+    """
+
+    record_id: str
+    facility_id: str
+    observed_at: str
+    observed_utc: str
+    units: int
+    nonconforming: int
+    unit_ref: str | None = None
+    inspector: str | None = None
+    note: str | None = None
+
+    def content(self) -> tuple:
+        """What must match for a record with a known id to be a retry of the stored one
+        (the instant, not how it was written)."""
+        return (self.facility_id, self.observed_utc, self.units, self.nonconforming,
+                self.unit_ref, self.inspector, self.note)
+
+
+# The columns of a stored record that RecordIn.content() compares, in the same order.
+_CONTENT_COLUMNS = "facility_id, observed_utc, units, nonconforming, unit_ref, inspector, note"
+
+
+class IngestOutcome(NamedTuple):
+    """What became of one record; ingest returns them in the order of its items."""
+
+    record_id: str
+    status: str                 # accepted | duplicate | conflict | invalid
+    seq: int | None = None
+    facility_id: str | None = None
+    detail: str | None = None
+    field: str | None = None
+
+
+_INSERT_RECORDS = (
+    "INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, observed_utc, "
+    "received_at, units, nonconforming, unit_ref, inspector, note, counted, key_label, void) "
+    "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0)")
+
+# The sqlite3 module binds a None parameter only after a failed adapter lookup that raises
+# and formats two AttributeErrors (about 0.4 us each; records carry several None fields).
+# With an adapter registered for None the lookup succeeds and None still binds as NULL.
+# None is not a base type, so this keeps the module's fast path for int, float and str.
+sqlite3.register_adapter(type(None), lambda value: None)
+
+
+class RecordsMixin:
+    def ingest(self, items: list[RecordIn], key_label: str | None, now: str,
+               rejected_before: int = 0) -> list[IngestOutcome]:
+        """Store a batch of validated records durably; returns one outcome per record.
+
+        Per record: a new id is evidence for the facility's current cycle (or a
+        post-decision record if the cycle has stopped); the same id with the same
+        content is a duplicate and is not counted again; the same id with other
+        content is a conflict. ``rejected_before`` counts records of the request
+        that failed validation, for the metrics (``items`` may be empty).
+
+        This blocking form commits in the calling thread (imports, the demo, scripts);
+        it returns once the records are committed. Never call it inside :meth:`write`.
+        """
+        job = Job(items, key_label, now, rejected_before)
+        self._commit_group([job])
+        return job.result()
+
+    async def ingest_async(self, items: list[RecordIn], key_label: str | None, now: str,
+                           rejected_before: int = 0) -> list[IngestOutcome]:
+        """:meth:`ingest` for request handlers on an event loop, with group commit
+        (:mod:`.group_commit`): the store's writer thread commits every request waiting at
+        that moment in one transaction (one fsync); each caller is answered only after its
+        records are committed."""
+        job = await self._committer.run_async(Job(items, key_label, now, rejected_before))
+        return job.result()
+
+    def _commit_group(self, jobs: list[Job]) -> None:
+        """On the writer thread: all jobs in one transaction, or each alone if that fails."""
+        with self._writer:
+            try:
+                with self._transaction() as conn:
+                    for j in jobs:
+                        j.outcomes = self._ingest_tx(conn, j)
+            except Exception:
+                # something failed: commit each job alone, so one cannot sink the others
+                for j in jobs:
+                    j.outcomes = None
+                    try:
+                        with self._transaction() as conn:
+                            j.outcomes = self._ingest_tx(conn, j)
+                    except Exception as exc:  # reported to that job's caller only
+                        j.error = exc
+
+    def _ingest_tx(self, conn, job: Job) -> list[IngestOutcome]:
+        """One job's records, inside the write transaction the caller holds."""
+        items, key_label, now = job.items, job.key_label, job.now
+        stored = self._stored_content(conn, list({it.record_id for it in items}))
+        cycles = self._current_cycles(conn, list({it.facility_id for it in items}))
+        seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
+        batch: dict[str, tuple[RecordIn, int]] = {}     # ids first seen in this job
+        runs: dict[str, tuple[list, list, list, list]] = {}   # facility -> its new records
+        inserts, alerts, outcomes = [], [], []
+        duplicates = rejected = 0
+        for it in items:
+            rid = it.record_id
+            earlier = batch.get(rid)
+            if earlier is not None:
+                same, old_seq, old_fid = (earlier[0].content() == it.content(), earlier[1],
+                                          earlier[0].facility_id)
+            elif rid in stored:
+                old_content, old_seq = stored[rid]
+                same, old_fid = old_content == it.content(), old_content[0]
+            else:
+                same = None
+            if same is not None:
+                if same:
+                    duplicates += 1
+                    outcomes.append(IngestOutcome(rid, "duplicate", old_seq, old_fid))
+                else:
+                    rejected += 1
+                    outcomes.append(IngestOutcome(
+                        rid, "conflict", old_seq, old_fid, f"record_id {rid!r} was "
+                        "already used for a record with different content; use a new "
+                        "record_id for a new record", "record_id"))
+                continue
+            cyc = cycles.get(it.facility_id)
+            if cyc is None:
+                rejected += 1
+                outcomes.append(IngestOutcome(rid, "invalid", None, None,
+                                              f"no facility {it.facility_id!r} is registered",
+                                              "facility_id"))
+                continue
+            seq += 1
+            run = runs.get(it.facility_id)
+            if run is None:
+                run = runs[it.facility_id] = ([], [], [], [])
+            run[0].append(len(inserts))
+            run[1].append(seq)
+            run[2].append(it.units)
+            run[3].append(it.nonconforming)
+            inserts.append((seq, rid, it.facility_id, cyc["cycle"], it.observed_at,
+                            it.observed_utc, now, it.units, it.nonconforming, it.unit_ref,
+                            it.inspector, it.note, 1, key_label))
+            batch[rid] = (it, seq)
+            outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id))
+        # each facility's new records in receipt order, as one run through the pure update
+        decided = []
+        for fid, (positions, seqs, units, bad) in runs.items():
+            cyc = cycles[fid]
+            state, decision, counted = apply_run(cyc["_plan"], cyc["_state"], seqs, units, bad,
+                                                 now)
+            for p in positions[counted:]:      # kept, but the cycle had stopped: not evidence
+                row = inserts[p]
+                inserts[p] = row[:12] + (0,) + row[13:]
+            if decision is not None:
+                decided.append((seqs[counted - 1], cyc, state, inserts[positions[counted - 1]][1]))
+            cyc["_state"] = state
+            cyc["record_count"] += len(positions)
+            cyc["last_record_at"] = now
+        conn.executemany(_INSERT_RECORDS, inserts)
+        for fid in runs:
+            self._write_state(conn, cycles[fid], cycles[fid]["_state"])
+        for _, cyc, state, rid in sorted(decided, key=lambda x: x[0]):   # alerts in record order
+            alerts += decision_alerts(cyc["facility_id"], cyc["cycle"], cyc["plan_name"],
+                                      cyc["_plan"], state, rid)
+        self._insert_alerts(conn, alerts, now)
+        self._bump(conn, "records_accepted", len(inserts))
+        self._bump(conn, "records_duplicate", duplicates)
+        self._bump(conn, "records_rejected", rejected + job.rejected_before)
+        return outcomes
+
+    @staticmethod
+    def _stored_content(conn, ids: list[str]) -> dict[str, tuple[tuple, int]]:
+        """record_id -> (content, seq) of the stored records among ``ids``."""
+        return {rid: (tuple(content), seq) for rid, seq, *content in where_in(
+            conn, f"SELECT record_id, seq, {_CONTENT_COLUMNS} FROM records "
+                  "WHERE record_id IN ({marks})", ids)}
+
+    @staticmethod
+    def _current_cycles(conn, facility_ids: list[str]) -> dict[str, dict]:
+        """facility_id -> its current cycle row, with the plan and state decoded."""
+        out = {}
+        for cur in where_in(conn, "SELECT c.* FROM facilities f JOIN cycles c ON "
+                                   "c.facility_id = f.facility_id AND c.cycle = "
+                                   "f.current_cycle WHERE f.facility_id IN ({marks})",
+                             facility_ids, cursors=True):
+            for row in rows_of(cur):
+                row["_plan"] = plan_of(row["plan_json"])
+                row["_state"] = state_of(row)
+                out[row["facility_id"]] = row
+        return out
+
+    @staticmethod
+    def _write_state(conn, cyc: dict, state: CycleState, extra: dict | None = None) -> None:
+        plan = cyc["_plan"]
+        values = {"status": state.status, "units": state.units,
+                  "nonconforming": state.nonconforming,
+                  "llr": float(plan.llr(state.units, state.nonconforming)),
+                  "decided_seq": state.decided_seq, "decided_at": state.decided_at,
+                  "decided_after_units": state.decided_after_units, "at_cap": int(state.at_cap),
+                  "last_record_at": cyc.get("last_record_at"),
+                  "record_count": cyc.get("record_count", 0)}
+        if extra:
+            values.update(extra)
+        sets = ", ".join(f"{k} = ?" for k in values)
+        conn.execute(f"UPDATE cycles SET {sets} WHERE facility_id = ? AND cycle = ?",
+                     [*values.values(), cyc["facility_id"], cyc["cycle"]])
+
+    def records(self, facility_id: str, cycle: int) -> list[dict]:
+        """A cycle's records in evidence (receipt) order, voids included, with the LLR after each."""
+        cyc = self.cycle(facility_id, cycle)
+        rows = self.read("SELECT * FROM records WHERE facility_id = ? AND cycle = ? ORDER BY seq",
+                         (facility_id, cycle))
+        plan = plan_of(cyc["plan_json"])
+        live = [r for r in rows if not r["void"]]
+        evidence = [Evidence(r["seq"], r["units"], r["nonconforming"], r["received_at"])
+                    for r in live]
+        llrs = dict(zip((r["seq"] for r in live),
+                        llr_path(plan, evidence, [bool(r["counted"]) for r in live])))
+        for r in rows:
+            r["llr_after"] = llrs.get(r["seq"])
+        return rows
+
+    def record(self, record_id: str) -> dict:
+        rows = self.read("SELECT * FROM records WHERE record_id = ?", (record_id,))
+        if not rows:
+            raise NotFound(f"no record {record_id!r}")
+        return rows[0]
+
+    def void_record(self, record_id: str, reason: str, now: str, actor) -> dict:
+        """Mark a record void and replay its cycle from the records still standing."""
+        with self.write() as conn:
+            rows = rows_of(conn.execute("SELECT * FROM records WHERE record_id = ?", (record_id,)))
+            if not rows:
+                raise NotFound(f"no record {record_id!r}")
+            rec = rows[0]
+            if rec["void"]:
+                raise Conflict(f"record {record_id!r} was already voided at {rec['voided_at']} by "
+                               f"{rec['voided_by']}")
+            conn.execute("UPDATE records SET void = 1, voided_at = ?, voided_by = ?, "
+                         "void_reason = ? WHERE seq = ?", (now, actor[0], reason, rec["seq"]))
+            fid, number = rec["facility_id"], rec["cycle"]
+            cyc = rows_of(conn.execute("SELECT * FROM cycles WHERE facility_id = ? AND cycle = ?",
+                                     (fid, number)))[0]
+            current = conn.execute("SELECT current_cycle FROM facilities WHERE facility_id = ?",
+                                   (fid,)).fetchone()[0]
+            cyc["_plan"] = plan_of(cyc["plan_json"])
+            before = state_of(cyc)
+            live = rows_of(conn.execute("SELECT seq, units, nonconforming, received_at FROM records "
+                                      "WHERE facility_id = ? AND cycle = ? AND void = 0 ORDER BY "
+                                      "seq", (fid, number)))
+            evidence = [Evidence(r["seq"], r["units"], r["nonconforming"], r["received_at"])
+                        for r in live]
+            state, counted = replay(cyc["_plan"], evidence, stop_seq=cyc["closed_seq"])
+            extra = {}
+            if state.is_open and cyc["closed_seq"] is not None:
+                state = CycleState(status=CLOSED, units=state.units,
+                                   nonconforming=state.nonconforming)
+            elif state.is_open and number < current:
+                state = CycleState(status=CLOSED, units=state.units,
+                                   nonconforming=state.nonconforming)
+                extra = {"closed_at": now, "closed_reason":
+                         f"undecided after a void, and cycle {current} is already open"}
+            conn.executemany("UPDATE records SET counted = ? WHERE seq = ?",
+                             [(int(c), r["seq"]) for c, r in zip(counted, live)])
+            cyc["record_count"] = len(live)
+            self._write_state(conn, cyc, state, extra)
+            alerts = void_alerts(fid, number, cyc["plan_name"], cyc["_plan"], before, state,
+                                 record_id, reason)
+            revised = bool(alerts)
+            alert_ids = self._insert_alerts(conn, alerts, now)
+            self._log(conn, now, actor, "record_voided",
+                      {"record_id": record_id, "reason": reason, "decision_revised": revised},
+                      facility_id=fid, cycle=number, target=record_id)
+        return {"record": self.record(record_id), "revised": revised, "alert_ids": alert_ids}
