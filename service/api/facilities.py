@@ -1,10 +1,11 @@
 from typing import Literal
 
-from fastapi import APIRouter, Depends, Query, Response
+from fastapi import APIRouter, Depends, Query, Request, Response
 
 from ..operations import Monitor
 from ..schemas import FacilityCreate, FacilityPage, FacilityPublic, ReasonCreate, RecordList, \
     Status
+from .csv_format import CSV_RESPONSE, Format, FormatQuery, csv_response, wants_csv
 from .deps import CycleNo, Offset, admin, analyst, monitor
 
 router = APIRouter(prefix="/v1/facilities", tags=["facilities"])
@@ -21,12 +22,17 @@ def register(body: FacilityCreate, response: Response, actor=Depends(admin),
     return out
 
 
-@router.get("", response_model=FacilityPage, summary="List facilities (analyst)")
-def list_facilities(status: Status | None = None, plan: str | None = None,
+@router.get("", response_model=FacilityPage, summary="List facilities (analyst)",
+            responses=CSV_RESPONSE)
+def list_facilities(request: Request, status: Status | None = None, plan: str | None = None,
                     q: str | None = Query(None, max_length=100, description="id or name contains"),
                     sort: Sort = "facility_id", descending: bool = False,
                     limit: int = Query(100, ge=1, le=1000), offset: Offset = 0,
+                    format: Format | None = FormatQuery,
                     actor=Depends(analyst), m: Monitor = Depends(monitor)):
+    if wants_csv(request, format):
+        return csv_response(m, "facilities", status=status, plan=plan, search=q, sort=sort,
+                            descending=descending)
     return m.facilities(status=status, plan=plan, search=q, sort=sort, descending=descending,
                         limit=limit, offset=offset)
 
@@ -38,9 +44,13 @@ def get_facility(facility_id: str, actor=Depends(analyst), m: Monitor = Depends(
 
 
 @router.get("/{facility_id}/records", response_model=RecordList,
-            summary="Records of a cycle in evidence order, with the LLR after each (analyst)")
-def records(facility_id: str, cycle: CycleNo = None, actor=Depends(analyst),
+            summary="Records of a cycle in evidence order, with the LLR after each (analyst)",
+            responses=CSV_RESPONSE)
+def records(request: Request, facility_id: str, cycle: CycleNo = None,
+            format: Format | None = FormatQuery, actor=Depends(analyst),
             m: Monitor = Depends(monitor)):
+    if wants_csv(request, format):
+        return csv_response(m, "records", facility_id=facility_id, cycle=cycle)
     return m.records(facility_id, cycle)
 
 
