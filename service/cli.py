@@ -65,6 +65,9 @@ def _cmd_plan(args, parser) -> int:
     if args.plot and Path(args.plot).suffix.lower() not in CHART_FORMATS:
         parser.error(f"argument --plot: file must end in {', '.join(CHART_FORMATS)}, "
                      f"got {args.plot!r}")
+    if args.plot and not Path(args.plot).resolve().parent.is_dir():
+        parser.error(f"argument --plot: folder {str(Path(args.plot).resolve().parent)!r} does "
+                     "not exist; create it first or write the chart elsewhere")
     try:
         result = design(args.p0, args.p1, args.alpha, args.beta, max_units=args.max_units,
                         cut_llr=args.cut_llr, calibrate=args.calibrate)
@@ -74,7 +77,10 @@ def _cmd_plan(args, parser) -> int:
         parser.error(str(exc))
     if args.plot:
         from .charts import save_plan_chart  # matplotlib only when a chart is asked for
-        save_plan_chart(result, args.plot)
+        try:
+            save_plan_chart(result, args.plot)
+        except OSError as exc:   # e.g. a folder without write permission
+            parser.error(f"argument --plot: cannot write {args.plot!r}: {exc.strerror or exc}")
     if args.json:
         json.dump(result.to_dict(), sys.stdout, indent=2)
         sys.stdout.write("\n")
@@ -123,6 +129,28 @@ def _settings(args):
         raise SystemExit(f"seqaudit: error: {exc}")
 
 
+def _db_source(args, settings) -> str:
+    import os
+    if getattr(args, "db", None):
+        return "--db"
+    if os.environ.get("SEQAUDIT_DB"):
+        return "SEQAUDIT_DB"
+    return f"the [service] db of {settings.config_path}"
+
+
+def _existing_db(args, parser, create: bool = False) -> Path:
+    """The database path of a command; unless ``create``, one that does not exist is an
+    error that says which path was tried and how to point at another (e.g. the demo's)."""
+    settings = _settings(args)
+    path = settings.db_path
+    if not create and not path.exists():
+        demo = Path(__file__).resolve().parent.parent / "data" / "demo.db"
+        parser.error(f"no database at {path} (from {_db_source(args, settings)}); give one with "
+                     f"--db PATH or SEQAUDIT_DB=PATH, e.g. --db {demo} for the demo's "
+                     "(made by scripts/run)")
+    return path
+
+
 def _add_service_options(p, db_default=None) -> None:
     p.add_argument("--db", default=db_default, help="SQLite file (default from the config)")
     p.add_argument("--config", default=None, help="TOML configuration file")
@@ -166,10 +194,19 @@ def _add_keys(sub) -> None:
     rev = ks.add_parser("revoke", help="revoke a key by id")
     _add_service_options(rev)
     rev.add_argument("key_id", type=int)
-    from .commands import keys as k
-    add.set_defaults(func=lambda a, _p: k.add(_settings(a).db_path, a.role, a.label))
-    lst.set_defaults(func=lambda a, _p: k.list_keys(_settings(a).db_path))
-    rev.set_defaults(func=lambda a, _p: k.revoke(_settings(a).db_path, a.key_id))
+
+    def keys_cmd(name):   # the store (and what it imports) only once a command runs
+        def run(a, parser):
+            from .commands import keys as k
+            db = _existing_db(a, parser, create=name == "add")
+            if name == "add":
+                return k.add(db, a.role, a.label)
+            return k.list_keys(db) if name == "list" else k.revoke(db, a.key_id)
+        return run
+
+    add.set_defaults(func=keys_cmd("add"))
+    lst.set_defaults(func=keys_cmd("list"))
+    rev.set_defaults(func=keys_cmd("revoke"))
 
 
 def _add_import(sub, noun: str) -> None:
@@ -211,14 +248,12 @@ def _add_backup(sub) -> None:
 
     def do_backup(a, parser):
         from .jobs.backup import BackupError, backup_to
-        settings = _settings(a)
-        if not settings.db_path.exists():
-            parser.error(f"argument --db: {settings.db_path} does not exist")
+        db = _existing_db(a, parser)
         try:
-            out = backup_to(settings.db_path, Path(a.out))
+            out = backup_to(db, Path(a.out))
         except (BackupError, OSError) as exc:
             parser.error(str(exc))
-        print(f"backup of {settings.db_path} written to {out} (integrity check ok)")
+        print(f"backup of {db} written to {out} (integrity check ok)")
         return 0
 
     def do_restore(a, parser):
@@ -255,11 +290,9 @@ def _add_casefile(sub) -> None:
             parser.error(f"argument --out: must end in .pdf or .json, got {a.out!r}")
         if not 0 < a.level < 1:
             parser.error(f"argument --level: must lie strictly between 0 and 1, got {a.level}")
-        settings = _settings(a)
-        if not settings.db_path.exists():
-            parser.error(f"argument --db: {settings.db_path} does not exist")
+        db = _existing_db(a, parser)
         try:
-            cf = build_casefile(Store(settings.db_path), a.facility_id, a.cycle, a.level)
+            cf = build_casefile(Store(db), a.facility_id, a.cycle, a.level)
         except ServiceError as exc:
             parser.error(exc.detail)
         if out.suffix.lower() == ".json":
@@ -282,11 +315,9 @@ def _add_verify(sub) -> None:
         import time as _time
         from .store import Store
         from .verify import verify_database
-        settings = _settings(a)
-        if not settings.db_path.exists():
-            parser.error(f"argument --db: {settings.db_path} does not exist")
+        db = _existing_db(a, parser)
         start = _time.perf_counter()
-        report = verify_database(Store(settings.db_path))
+        report = verify_database(Store(db))
         took = _time.perf_counter() - start
         for m in report.mismatches[:20]:
             print(f"MISMATCH {m}", file=sys.stderr)
@@ -294,6 +325,37 @@ def _add_verify(sub) -> None:
               + ("every stored state equals its replay" if report.ok
                  else f"{len(report.mismatches)} cycle(s) differ"))
         return 0 if report.ok else 1
+
+    p.set_defaults(func=run)
+
+
+def _add_export(sub) -> None:
+    p = sub.add_parser("export", help="write facilities, a cycle's records, alerts or the "
+                                      "action log as CSV")
+    p.add_argument("kind", choices=("facilities", "records", "alerts", "actions"))
+    p.add_argument("--facility", default=None,
+                   help="facility id (needed for records; a filter for alerts and actions)")
+    p.add_argument("--cycle", type=_unit_count, default=None,
+                   help="cycle number (records: default the current one; actions: a filter)")
+    p.add_argument("--state", choices=("open", "acknowledged"), default=None,
+                   help="alerts in this state only")
+    p.add_argument("--out", default=None, help="CSV file to write (default: standard output)")
+    _add_service_options(p)
+
+    def run(a, parser):
+        if a.kind == "records" and not a.facility:
+            parser.error("argument --facility: needed to export records")
+        if a.out and not Path(a.out).resolve().parent.is_dir():
+            parser.error(f"argument --out: folder {str(Path(a.out).resolve().parent)!r} does "
+                         "not exist")
+        db = _existing_db(a, parser)
+        from .commands.export import export
+        rows, error = export(_settings(a), db, a.kind, a.out, a.facility, a.cycle, a.state)
+        if error:
+            parser.error(error)
+        if a.out:
+            print(f"{rows} {a.kind} row(s) written to {a.out}")
+        return 0
 
     p.set_defaults(func=run)
 
@@ -312,6 +374,7 @@ def build_parser() -> _Parser:
     _add_backup(sub)
     _add_casefile(sub)
     _add_verify(sub)
+    _add_export(sub)
     return parser
 
 

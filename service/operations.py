@@ -17,7 +17,8 @@ from pydantic import TypeAdapter, ValidationError
 from .clock import format_time, normalize_utc_text, parse_rfc3339, utc_now
 from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
-from .schemas import FacilityCreate, RecordBatchCreate, RecordCreate
+from .schemas import FACILITY_ID_PATTERN, PRINTABLE, RFC3339_PATTERN, FacilityCreate, \
+    RecordBatchCreate, RecordCreate
 from .stats import SprtPlan, design
 from .stats.calibrate import calibrate
 from .store import RecordIn, Store
@@ -30,13 +31,33 @@ _CODES = {"accepted": 201, "duplicate": 200, "conflict": 409, "invalid": 422}
 
 def _prefix(index: int, batch: bool) -> str:
     """Where a record's fields are in the request body, for error reports."""
-    return f"records.{index}." if batch else ""
+    return f"records[{index}]." if batch else ""
+
+
+def field_path(parts) -> str:
+    """A location as a person reads it: ``records[1].nonconforming``."""
+    out = ""
+    for p in parts:
+        out += f"[{p}]" if isinstance(p, int) else (f".{p}" if out else str(p))
+    return out
+
+
+#: What a pattern means, in words, for the patterns of service/schemas.py.
+PATTERN_WORDS = {
+    RFC3339_PATTERN: "must be an RFC 3339 time with offset, e.g. 2026-11-07T08:00:00Z",
+    PRINTABLE: "must not contain control characters (tabs, line breaks and the like)",
+    FACILITY_ID_PATTERN: "must not contain / or \\",
+}
 
 
 def error_message(err: dict) -> str:
     """A pydantic error's message as a person reads it."""
     if err.get("type") == "extra_forbidden":
         return "unknown field"
+    if err.get("type") == "string_pattern_mismatch":
+        words = PATTERN_WORDS.get((err.get("ctx") or {}).get("pattern"))
+        if words:
+            return words
     msg = str(err.get("msg", "invalid"))
     return msg[len("Value error, "):] if msg.startswith("Value error, ") else msg
 
@@ -45,7 +66,7 @@ def validation_errors(exc: ValidationError, prefix: str = "") -> list[dict]:
     """pydantic errors as [{field, message}] with dotted field paths."""
     out = []
     for err in exc.errors(include_url=False):
-        loc = ".".join(str(p) for p in err["loc"] if p != "__root__")
+        loc = field_path(p for p in err["loc"] if p != "__root__")
         msg = error_message(err)
         out.append({"field": (prefix + loc) if loc else prefix.rstrip(".") or "body",
                     "message": msg})

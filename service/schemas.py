@@ -18,6 +18,7 @@ Role = Literal["field", "analyst", "admin"]
 # Printable text: no control characters (checked by pydantic-core's regex engine, which
 # keeps validation of 1000-record batches fast).
 PRINTABLE = r"^[^\x00-\x1f\x7f]*$"
+FACILITY_ID_PATTERN = r"^[^/\\]+$"
 RFC3339_PATTERN = (r"^\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}:\d{2}(\.\d{1,9})?([Zz]|[+-]\d{2}:\d{2})$")
 
 
@@ -59,7 +60,7 @@ class RecordBatchCreate(_Strict):
 
 
 class FacilityCreate(_Strict):
-    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=r"^[^/\\]+$")
+    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=FACILITY_ID_PATTERN)
     name: StrictStr = Field(min_length=1, max_length=200)
     plan: StrictStr = Field(min_length=1, max_length=64)
 

@@ -56,13 +56,13 @@ def test_batch_keeps_good_records_and_reports_each_bad_one(client, keys):
     assert [x["status"] for x in res] == ["accepted", "invalid", "invalid", "conflict",
                                           "duplicate", "duplicate", "invalid", "invalid",
                                           "invalid", "invalid"]
-    assert res[1]["errors"][0]["field"] == "records.1.facility_id"
-    assert res[2]["errors"][0]["field"] == "records.2"
+    assert res[1]["errors"][0]["field"] == "records[1].facility_id"
+    assert res[2]["errors"][0]["field"] == "records[2]"
     assert "cannot exceed" in res[2]["errors"][0]["message"]
-    assert res[6]["errors"][0]["field"] == "records.6.observed_at"
-    assert {e["field"] for e in res[7]["errors"]} >= {"records.7.facility_id",
-                                                       "records.7.observed_at"}
-    assert res[9]["errors"][0]["field"] == "records.9.colour"
+    assert res[6]["errors"][0]["field"] == "records[6].observed_at"
+    assert {e["field"] for e in res[7]["errors"]} >= {"records[7].facility_id",
+                                                       "records[7].observed_at"}
+    assert res[9]["errors"][0]["field"] == "records[9].colour"
     assert (r.json()["accepted"], r.json()["duplicate"], r.json()["rejected"]) == (1, 2, 7)
     s = state(client, keys, fid)
     assert s["units"] == 2
@@ -84,7 +84,7 @@ def test_a_schema_valid_batch_still_reports_each_later_fault(client, keys, app):
         ("v-1", "accepted"), ("v-2", "invalid"), ("v-3", "invalid"), ("v-4", "invalid"),
         ("v-5", "accepted"), ("v-1", "duplicate")]
     assert [x["errors"][0]["field"] for x in res[1:4]] == [
-        "records.1.observed_at", "records.2.observed_at", "records.3.facility_id"]
+        "records[1].observed_at", "records[2].observed_at", "records[3].facility_id"]
     assert "calendar date" in res[1]["errors"][0]["message"]
     assert "future" in res[2]["errors"][0]["message"]
     # the same batch through the parsed-dict path gives the same report, record for record

@@ -11,6 +11,7 @@ from ..clock import utc_now
 from ..operations import Monitor, PlanBook
 from ..settings import Settings, load_settings
 from ..store import Store
+from ..version import software_version
 from .limits import BodyLimit, TokenBuckets
 from . import actions, alerts, casefiles, facilities, health, keys, metrics, plans, problems, \
     records, webhooks
@@ -47,7 +48,8 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
                 http.close()
             store.close()
 
-    app = FastAPI(title="seqaudit", version="0.1.0", description=DESCRIPTION, lifespan=lifespan)
+    app = FastAPI(title="seqaudit", version=software_version(), description=DESCRIPTION,
+                  lifespan=lifespan, docs_url=None, redoc_url=None)
     app.state.settings = settings
     app.state.monitor = monitor
     app.state.buckets = TokenBuckets(settings.rate_per_s, settings.rate_burst)
@@ -58,6 +60,8 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     for module in (records, health, facilities, casefiles, alerts, plans, metrics, actions, keys,
                    webhooks):
         app.include_router(module.router)
+    from .docs import install_docs
+    install_docs(app)
     from ..web.install import install_ui
     install_ui(app)
     return app

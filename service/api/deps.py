@@ -56,9 +56,11 @@ def require(minimum: str):
                                    f"this key's role is {actor[1]}")
         return actor
 
+    check.seqaudit_role = minimum   # read by api/docs.py for the OpenAPI document
     return check
 
 
+caller.seqaudit_role = "field"
 field_or_above = require("field")
 analyst = require("analyst")
 admin = require("admin")

@@ -9,7 +9,7 @@ from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from ..errors import ServiceError
-from ..operations import error_message, validation_errors
+from ..operations import error_message, field_path, validation_errors
 
 PROBLEM_TYPE = "application/problem+json"
 log = logging.getLogger("seqaudit.api")
@@ -64,10 +64,10 @@ def install(app: FastAPI) -> None:
     async def _validation(request: Request, exc: RequestValidationError):
         errors = []
         for err in exc.errors():
-            loc = [str(p) for p in err.get("loc", ()) if p not in ("body",)]
+            loc = [p for p in err.get("loc", ()) if p not in ("body",)]
             msg = error_message(err)
-            errors.append({"field": ".".join(loc[1:] if loc and loc[0] in ("query", "path")
-                                             else loc) or "body",
+            errors.append({"field": field_path(loc[1:] if loc and loc[0] in ("query", "path")
+                                               else loc) or "body",
                            "in": loc[0] if loc and loc[0] in ("query", "path") else "body",
                            "message": msg})
         first = errors[0] if errors else {"field": "body", "message": "invalid"}

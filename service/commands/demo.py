@@ -100,6 +100,15 @@ def feed(base_url: str, key: str, seconds: float, rate: float, seed_value: int =
     return sent
 
 
+def _feed_then_say(base: str, key: str, minutes: float, rate: float,
+                   stop: threading.Event) -> None:
+    """Run the feed; when it ends on its own, say so (the service keeps serving)."""
+    sent = feed(base, key, minutes * 60, rate, stop=stop)
+    if not stop.is_set():
+        print(f"seqaudit demo: the simulated feed has ended ({sent} posts in {minutes:g} min); "
+              f"the service keeps serving at {base}/ui until Ctrl-C", flush=True)
+
+
 def run_demo(settings: Settings, minutes: float, rate: float) -> int:
     from .serve import serve
 
@@ -107,20 +116,22 @@ def run_demo(settings: Settings, minutes: float, rate: float) -> int:
     keys = seed(settings, keys_file)
     base = f"http://{settings.host}:{settings.port}"
     print(f"{OFFICE} — seqaudit demo")
-    print(f"  service:   {base}")
+    print(f"  dashboard: {base}/ui   (sign in with the analyst key below)")
     print(f"  API docs:  {base}/docs")
     print(f"  database:  {settings.db_path}")
     print(f"  demo keys (also in {keys_file}):")
     for role, key in keys.items():
         print(f"    {role:<8} {key}")
+    print("  the analyst key opens the dashboard; the admin key also manages keys and "
+          "facilities; the field key only posts records")
     print(f"  feeding simulated tablet posts for {minutes:g} min at about {rate:g}/s; "
           "Ctrl-C stops the service")
     print("  A boundary crossing is a statistical signal for review under the agency's own "
           "procedures, not a verdict.")
     sys.stdout.flush()
     stop = threading.Event()
-    feeder = threading.Thread(target=feed, args=(base, keys["field"], minutes * 60, rate),
-                              kwargs={"stop": stop}, daemon=True)
+    feeder = threading.Thread(target=_feed_then_say,
+                              args=(base, keys["field"], minutes, rate, stop), daemon=True)
     feeder.start()
     try:
         return serve(settings, log_level="warning")

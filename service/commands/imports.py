@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import csv
+import re
 import sys
 from pathlib import Path
 
@@ -106,8 +107,7 @@ def import_records(monitor: Monitor, path: str, errors_file: str | None = None) 
                 ok += 1
             else:
                 for err in res.get("errors") or [{"field": "row", "message": res["status"]}]:
-                    field = err["field"].split(".", 2)[-1] if err["field"].startswith("records.") \
-                        else err["field"]
+                    field = re.sub(r"^records\[\d+\]\.?", "", err["field"]) or "row"
                     errors.append((line, field, err["message"]))
         progress.advance(len(chunk))
     progress.finish()

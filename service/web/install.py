@@ -69,6 +69,10 @@ class SecurityHeaders:
 
 def install_ui(app: FastAPI) -> None:
     app.include_router(router)
+
+    @app.get("/", include_in_schema=False)
+    async def _home():
+        return RedirectResponse("/ui", status_code=307)
     app.mount("/ui/static", StaticFiles(directory=str(STATIC)), name="ui-static")
 
     app.add_middleware(SecurityHeaders)
