@@ -48,6 +48,10 @@ def _add_plan(sub) -> None:
                    help="tune the boundaries so the exact risks meet alpha and beta")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--plot", metavar="FILE", help="write OC and ASN curves (.png, .svg, .pdf)")
+    p.add_argument("--register-size", type=_unit_count, default=None, metavar="K",
+                   help="facilities in the register: design for alpha = F / K per facility")
+    p.add_argument("--register-false-flags", type=_rate, default=None, metavar="F",
+                   help="expected false flags allowed over the register (with --register-size)")
     p.set_defaults(func=_cmd_plan)
 
 
@@ -68,9 +72,19 @@ def _cmd_plan(args, parser) -> int:
     if args.plot and not Path(args.plot).resolve().parent.is_dir():
         parser.error(f"argument --plot: folder {str(Path(args.plot).resolve().parent)!r} does "
                      "not exist; create it first or write the chart elsewhere")
+    register = None
+    if (args.register_size is None) != (args.register_false_flags is None):
+        parser.error("arguments --register-size and --register-false-flags go together")
     try:
-        result = design(args.p0, args.p1, args.alpha, args.beta, max_units=args.max_units,
-                        cut_llr=args.cut_llr, calibrate=args.calibrate)
+        if args.register_size is not None:
+            from .stats.register import register_design
+            result, register = register_design(
+                args.p0, args.p1, args.alpha, args.beta, args.register_size,
+                args.register_false_flags, max_units=args.max_units, cut_llr=args.cut_llr,
+                calibrate=args.calibrate)
+        else:
+            result = design(args.p0, args.p1, args.alpha, args.beta, max_units=args.max_units,
+                            cut_llr=args.cut_llr, calibrate=args.calibrate)
     except PlanInputError as exc:
         parser.error(f"argument --{exc.argument.replace('_', '-')}: {exc}")
     except ValueError as exc:  # e.g. a cap too small for calibration to meet the risks
@@ -82,9 +96,15 @@ def _cmd_plan(args, parser) -> int:
         except OSError as exc:   # e.g. a folder without write permission
             parser.error(f"argument --plot: cannot write {args.plot!r}: {exc.strerror or exc}")
     if args.json:
-        json.dump(result.to_dict(), sys.stdout, indent=2)
+        out = result.to_dict()
+        if register is not None:
+            out["register"] = register
+        json.dump(out, sys.stdout, indent=2)
         sys.stdout.write("\n")
     else:
+        if register is not None:
+            from .program import register_lines
+            sys.stdout.write("\n".join(register_lines(register)) + "\n\n")
         sys.stdout.write(render(result))
         if args.plot:
             sys.stdout.write(f"\nChart written to {args.plot}\n")

@@ -1,0 +1,270 @@
+"""The audit program: pure decisions about the whole register (no SQL, no clock).
+
+* :func:`forecast` — exact per-cycle figures conditioned on each open cycle's
+  (n, d), their sums over the register, and with a weekly budget the weeks to
+  decide half and 90 % of the open cycles (seeded simulation from the exact
+  per-cycle stop distributions).
+* :func:`visit_scores` / :func:`allocate` — this week's visits: a score of our
+  own from past records only, the units per facility under the budget, and the
+  reason in words.
+
+Visit score (points, higher first; every term uses only what is already
+recorded, never the outcome of a unit not yet audited):
+
+==================  =========================================================
+never audited       2.5 when the open cycle has no counted unit yet
+leaning to a flag   2 x lean, lean = max(0, 2 x position - 1), where position
+                    = (LLR - b) / (a - b) is where the LLR stands between the
+                    clear boundary b (0) and the flag boundary a (1)
+could decide now    1.5 when a visit of ``per_visit`` conforming units would
+                    clear the cycle (ceil((LLR - b) / g2) <= per_visit), or
+                    two nonconforming units would flag it
+gone stale          min(days since the last record / stale days, 2)
+watch chart high    2 when the facility's watch chart is at its high level
+==================  =========================================================
+
+Units per facility: as many as would clear the cycle if all conform
+(ceil((LLR - b) / g2)), at least 1 and at most ``per_visit``; facilities are
+served in score order until the budget is spent (the last one may get fewer).
+
+Why choosing facilities this way leaves every facility's own error rates
+unchanged is argued in the README ("Running the audit program") and checked by
+tests/test_program_simulation.py.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .stats.register import QUANTILES, conditioned
+from .stats.sprt import SprtPlan
+
+NEVER_POINTS = 2.5
+LEAN_POINTS = 2.0
+NEAR_POINTS = 1.5
+STALE_CAP = 2.0
+WATCH_POINTS = 2.0
+PER_VISIT = 20
+RUNS = 400
+SEED = 20260415
+SHARES = (0.5, 0.9)
+
+
+# -- register forecast ----------------------------------------------------------------
+@dataclass(frozen=True)
+class OpenCycle:
+    """One open cycle as the forecast needs it."""
+
+    facility_id: str
+    cycle: int
+    plan_key: str          # groups cycles sharing a plan (e.g. the snapshot text)
+    plan: SprtPlan
+    n: int
+    d: int
+
+
+def forecast(cycles: list[OpenCycle], budget: int | None = None, runs: int = RUNS,
+             seed: int = SEED) -> dict:
+    """Exact per-cycle figures, register totals and (with ``budget``) weeks to decide.
+
+    Cycles are grouped by plan and each distinct (n, d) is computed once
+    (:func:`service.stats.register.conditioned`).
+    """
+    groups: dict[str, list[int]] = {}
+    for i, c in enumerate(cycles):
+        groups.setdefault(c.plan_key, []).append(i)
+    size = len(cycles)
+    pf0 = np.zeros(size)
+    pc1 = np.zeros(size)
+    pf1 = np.zeros(size)
+    pc0 = np.zeros(size)
+    e0 = np.zeros(size)
+    e1 = np.zeros(size)
+    qs = {(r, q): np.zeros(size, dtype=np.int64) for r in (0, 1) for q in QUANTILES}
+    llr = np.zeros(size)
+    laws = []
+    for idx in groups.values():
+        plan = cycles[idx[0]].plan
+        idx_a = np.asarray(idx)
+        n = np.fromiter((cycles[i].n for i in idx), dtype=np.int64, count=len(idx))
+        d = np.fromiter((cycles[i].d for i in idx), dtype=np.int64, count=len(idx))
+        fig = conditioned(plan, n, d, [plan.p0, plan.p1], keep_distribution=budget is not None)
+        pf0[idx_a], pf1[idx_a] = fig.p_flag
+        pc0[idx_a], pc1[idx_a] = fig.p_clear
+        e0[idx_a], e1[idx_a] = fig.further
+        for q in QUANTILES:
+            qs[(0, q)][idx_a], qs[(1, q)][idx_a] = fig.quantiles[q]
+        llr[idx_a] = plan.llr(n, d)
+        laws.append((idx_a, fig))
+    rows = [{"facility_id": c.facility_id, "cycle": c.cycle, "units": c.n, "nonconforming": c.d,
+             "llr": float(llr[i]),
+             "p_flag_p0": float(pf0[i]), "p_clear_p0": float(pc0[i]),
+             "p_flag_p1": float(pf1[i]), "p_clear_p1": float(pc1[i]),
+             "further_p0": float(e0[i]), "further_p1": float(e1[i]),
+             **{f"further_p{r}_q{round(q * 100)}": int(qs[(r, q)][i])
+                for r in (0, 1) for q in QUANTILES}}
+            for i, c in enumerate(cycles)]
+    out = {"totals": {"open_cycles": size,
+                      "expected_false_flags": float(pf0.sum()),
+                      "expected_missed": float(pc1.sum()),
+                      "expected_audits_p0": float(e0.sum()),
+                      "expected_audits_p1": float(e1.sum())},
+           "cycles": rows}
+    if budget is not None:
+        out["weeks"] = weeks_to_decide(laws, size, (e0, e1), budget, runs, seed)
+    return out
+
+
+def weeks_to_decide(laws, size: int, expected, budget: int, runs: int = RUNS,
+                    seed: int = SEED, shares=SHARES) -> dict:
+    """Weeks to decide a share of the open cycles at ``budget`` audits a week.
+
+    Model (ours, stated with the answer): each run draws every open cycle's
+    further units from its exact stop distribution (inverse transform); the
+    budget goes to the open cycles one at a time in order of fewest expected
+    further units, each audited until it decides. The k-th cycle in that order
+    is decided in week ceil(S_k / budget), S_k the sum of the first k draws;
+    the share s is reached when cycle ceil(s x open) is. Reported per rate:
+    the mean over ``runs`` runs and its standard error (sd / sqrt(runs)).
+    """
+    if size == 0:
+        return {"budget": budget, "runs": runs, "seed": seed,
+                **{f"p{r}": {f"weeks_{round(s * 100)}": 0.0 for s in shares} for r in (0, 1)}}
+    rng = np.random.default_rng(seed)
+    out = {"budget": budget, "runs": runs, "seed": seed,
+           "model": "each open cycle audited until it decides, fewest expected further "
+                    "audits first; further audits drawn from the exact stop distribution"}
+    for r in (0, 1):
+        draws = np.empty((runs, size), dtype=np.int64)
+        for idx_a, fig in laws:
+            # one block of uniforms per distinct state, mapped through its exact law
+            keys = fig.index
+            for k in np.unique(keys):
+                cols = idx_a[keys == k]
+                state = int(np.flatnonzero(keys == k)[0])
+                u = rng.random(runs * cols.size)
+                draws[:, cols] = fig.draw_further(r, state, u).reshape(runs, cols.size)
+        order = np.argsort(expected[r], kind="stable")
+        total = np.cumsum(draws[:, order], axis=1)
+        row = {}
+        for s in shares:
+            k = max(1, math.ceil(s * size))
+            weeks = np.ceil(total[:, k - 1] / budget)
+            row[f"weeks_{round(s * 100)}"] = float(weeks.mean())
+            row[f"weeks_{round(s * 100)}_se"] = float(weeks.std(ddof=1) / math.sqrt(runs)) \
+                if runs > 1 else None
+        out[f"p{r}"] = row
+    return out
+
+
+# -- register-level error target ---------------------------------------------------
+def register_lines(info: dict) -> list[str]:
+    """Text for `seqaudit plan --register-size K --register-false-flags F`."""
+    k, f = info["size"], info["false_flags"]
+    lines = [f"Register of {k} facilities, {f:g} false flag(s) allowed",
+             f"  alpha per facility = F / K = {info['alpha_per_facility']:.6g} "
+             "(Bonferroni: expected false flags over the register = F)"]
+    if info["alpha_sidak"] is not None:
+        lines.append(f"  Sidak alpha = 1 - (1 - F)^(1/K) = {info['alpha_sidak']:.6g} "
+                     "(chance of any false flag = F for independent facilities; "
+                     "Sidak 1967, JASA 62:626-633)")
+    else:
+        lines.append("  Sidak alpha: not defined for F >= 1 (it bounds a probability)")
+    extra = info["asn_p0_register"] / info["asn_p0_original"] - 1.0
+    lines.append(f"  units expected at p0: {info['asn_p0_original']:.2f} at alpha "
+                 f"{info['alpha_original']:g}, {info['asn_p0_register']:.2f} at alpha "
+                 f"{info['alpha_per_facility']:.6g} ({100 * extra:+.0f} %)")
+    lines.append("  The plan below is the plan at the per-facility alpha.")
+    return lines
+
+
+# -- this week's visits -------------------------------------------------------------
+@dataclass(frozen=True)
+class VisitInputs:
+    """Arrays over open cycles (one per facility) for the visit score.
+
+    ``upper``, ``lower``, ``g1``, ``g2`` are each cycle's plan numbers;
+    ``age_days`` is the time since the cycle's last record (or since it
+    opened); ``watch_high`` marks facilities whose watch chart is high.
+    """
+
+    n: np.ndarray
+    d: np.ndarray
+    upper: np.ndarray
+    lower: np.ndarray
+    g1: np.ndarray
+    g2: np.ndarray
+    age_days: np.ndarray
+    stale_days: np.ndarray
+    watch_high: np.ndarray
+
+
+@dataclass(frozen=True)
+class VisitScores:
+    score: np.ndarray
+    units: np.ndarray          # units wanted per visit
+    position: np.ndarray
+    to_clear: np.ndarray
+    to_flag: np.ndarray
+    parts: dict
+
+
+def visit_scores(x: VisitInputs, per_visit: int = PER_VISIT) -> VisitScores:
+    """The documented visit score (module docstring), vectorised over cycles."""
+    llr = x.d * (x.g1 + x.g2) - x.n * x.g2
+    position = np.clip((llr - x.lower) / (x.upper - x.lower), 0.0, 1.0)
+    to_clear = np.maximum(np.ceil((llr - x.lower) / x.g2 - 1e-9), 1).astype(np.int64)
+    to_flag = np.maximum(np.ceil((x.upper - llr) / x.g1 - 1e-9), 1).astype(np.int64)
+    never = np.where(x.n == 0, NEVER_POINTS, 0.0)
+    lean = LEAN_POINTS * np.maximum(0.0, 2.0 * position - 1.0)
+    near = np.where((to_clear <= per_visit) | (to_flag <= 2), NEAR_POINTS, 0.0)
+    stale = np.minimum(x.age_days / x.stale_days, STALE_CAP)
+    watch = np.where(x.watch_high, WATCH_POINTS, 0.0)
+    score = never + lean + near + stale + watch
+    units = np.clip(to_clear, 1, per_visit)
+    return VisitScores(score=score, units=units, position=position, to_clear=to_clear,
+                       to_flag=to_flag, parts={"never": never, "lean": lean, "near": near,
+                                               "stale": stale, "watch": watch})
+
+
+def rank(score: np.ndarray, ids: list[str] | None = None) -> np.ndarray:
+    """Indices in visit order: score descending, ties by id (or index)."""
+    if ids is None:
+        return np.lexsort((np.arange(score.size), -score))
+    keys = np.unique(np.asarray(ids, dtype=object), return_inverse=True)[1]
+    return np.lexsort((keys, -score))
+
+
+def allocate(order: np.ndarray, units: np.ndarray, budget: int) -> np.ndarray:
+    """Units given to each cycle when the budget is spent in ``order``."""
+    want = units[order]
+    before = np.concatenate([[0], np.cumsum(want)[:-1]])
+    give = np.clip(budget - before, 0, want)
+    out = np.zeros(units.size, dtype=np.int64)
+    out[order] = give
+    return out
+
+
+def reason(parts: dict, i: int, position: float, to_clear: int, to_flag: int, age_days: float,
+           stale_days: float, units: int) -> str:
+    """The score of cycle ``i`` in words."""
+    words = []
+    if parts["never"][i] > 0:
+        words.append("never audited in this cycle")
+    if parts["watch"][i] > 0:
+        words.append("watch chart high")
+    if parts["lean"][i] > 0:
+        words.append(f"leaning toward a flag ({100 * position:.0f} % of the way from the clear "
+                     f"to the flag boundary; {to_flag} nonconforming unit(s) in a row would flag)")
+    if parts["near"][i] > 0 and parts["never"][i] == 0:
+        if to_clear <= units:
+            words.append(f"{to_clear} conforming unit(s) would clear it")
+        elif to_flag <= 2:
+            words.append(f"{to_flag} nonconforming unit(s) would flag it")
+    if age_days >= stale_days:
+        words.append(f"no record for {age_days:.0f} days")
+    if not words:
+        words.append(f"routine: {to_clear} conforming unit(s) from clearing")
+    return "; ".join(words)
