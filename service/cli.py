@@ -380,6 +380,40 @@ def _add_export(sub) -> None:
     p.set_defaults(func=run)
 
 
+def _whole(text: str) -> int:
+    try:
+        return int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"must be a whole number, got {text!r}") from None
+
+
+def _add_program(sub) -> None:
+    p = sub.add_parser("program", help="the audit program: register forecast, this week's visits")
+    acts = p.add_subparsers(dest="program_command", parser_class=_Parser, metavar="ACTION")
+    acts.required = True
+    fc = acts.add_parser("forecast", help="exact figures of every open cycle and their sums")
+    fc.add_argument("--budget", type=_whole, default=None,
+                    help="audits a week: add the weeks to decide 50 %% and 90 %% of the cycles")
+    fc.add_argument("--runs", type=_whole, default=400, help="simulation runs (default 400)")
+    fc.add_argument("--seed", type=_whole, default=20260415, help="simulation seed")
+    fc.add_argument("--json", action="store_true", help="print one JSON object")
+    vs = acts.add_parser("visits", help="facilities to visit this week under a budget")
+    vs.add_argument("--budget", type=_whole, required=True, help="audits available this week")
+    vs.add_argument("--per-visit", type=_whole, default=20, help="most units at one facility")
+    vs.add_argument("--format", choices=("text", "json", "csv"), default="text")
+    for q in (fc, vs):
+        q.add_argument("--region", default=None, help="limit to one region")
+        _add_service_options(q)
+
+    def run(a, parser):
+        from .commands import program
+        a.settings = _settings(a)
+        return program.run(a.program_command, a, parser)
+
+    fc.set_defaults(func=run)
+    vs.set_defaults(func=run)
+
+
 def build_parser() -> _Parser:
     parser = _Parser(prog="seqaudit", description="Sequential audit monitor (SPRT).")
     sub = parser.add_subparsers(dest="command", parser_class=_Parser, metavar="COMMAND")
@@ -395,6 +429,7 @@ def build_parser() -> _Parser:
     _add_casefile(sub)
     _add_verify(sub)
     _add_export(sub)
+    _add_program(sub)
     return parser
 
 

@@ -140,7 +140,7 @@ def facility_public(row: dict, cycles: list[dict] | None = None) -> dict:
            "units": row["units"], "nonconforming": row["nonconforming"], "llr": row["llr"],
            "upper_llr": snap["upper_llr"], "lower_llr": snap["lower_llr"],
            "decided_at": row["decided_at"], "decided_after_units": row["decided_after_units"],
-           "last_record_at": row["last_record_at"]}
+           "last_record_at": row["last_record_at"], "region": row.get("region")}
     if cycles is not None:
         out["cycles"] = [cycle_public(c) for c in cycles]
     return out
@@ -186,7 +186,8 @@ class Monitor:
             raise Invalid(f"unknown plan {body.plan!r}; configured plans: "
                           f"{', '.join(sorted(self.plans.specs))}", field="plan")
         self.store.add_facility(body.facility_id, body.name, body.plan,
-                                self.plans.snapshot(body.plan), self.clock(), actor)
+                                self.plans.snapshot(body.plan), self.clock(), actor,
+                                region=body.region)
         return self.facility(body.facility_id)
 
     def facility(self, facility_id: str, with_cycles: bool = True) -> dict:
@@ -194,6 +195,9 @@ class Monitor:
         return facility_public(row, self.store.cycles(facility_id) if with_cycles else None)
 
     def facilities(self, **filters) -> dict:
+        if filters.get("region") is not None:
+            from .program_ops import check_region
+            check_region(self.store, filters["region"])
         rows, total = self.store.facilities(**filters)
         return {"items": [facility_public(r) for r in rows], "total": total,
                 "limit": filters.get("limit", 100), "offset": filters.get("offset", 0)}

@@ -63,11 +63,12 @@ class FacilityCreate(_Strict):
     facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=FACILITY_ID_PATTERN)
     name: StrictStr = Field(min_length=1, max_length=200)
     plan: StrictStr = Field(min_length=1, max_length=64)
+    region: StrictStr | None = Field(default=None, min_length=1, max_length=64)
 
-    @field_validator("facility_id", "name")
+    @field_validator("facility_id", "name", "region")
     @classmethod
     def _no_controls(cls, value, info):
-        return _printable(value, info.field_name)
+        return value if value is None else _printable(value, info.field_name)
 
 
 class ReasonCreate(_Strict):
@@ -118,6 +119,7 @@ class FacilityPublic(BaseModel):
     decided_at: str | None
     decided_after_units: int | None
     last_record_at: str | None
+    region: str | None = None
     cycles: list[CyclePublic] | None = None
 
 

@@ -115,6 +115,8 @@ def test_duplicate_facility_is_409(client, keys):
     ("POST", "/v1/alerts/999999/ack", {}, 404),
     ("POST", "/v1/alerts/abc/ack", {}, 422),
     ("GET", "/v1/plans/nope", None, 404),
+    ("GET", "/v1/program/visits?budget=0", None, 422),
+    ("GET", "/v1/program/forecast?region=nowhere", None, 422),
     ("GET", "/v1/nothing-here", None, 404),
     ("DELETE", "/v1/facilities", None, 405),
     ("POST", "/v1/keys", {"role": "root", "label": "x"}, 422),

@@ -15,6 +15,7 @@ from ..version import software_version
 from .limits import BodyLimit, TokenBuckets
 from . import actions, alerts, casefiles, facilities, health, keys, metrics, plans, problems, \
     records, webhooks
+from . import program as program_api
 
 DESCRIPTION = (
     "Sequential audit monitor: Wald's SPRT per facility on the rate of nonconforming passes. "
@@ -58,7 +59,7 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     # Routes are matched in the order they were added, one by one: the record route, which
     # takes almost all the traffic, goes first and the dashboard's many pages last.
     for module in (records, health, facilities, casefiles, alerts, plans, metrics, actions, keys,
-                   webhooks):
+                   webhooks, program_api):
         app.include_router(module.router)
     from .docs import install_docs
     install_docs(app)

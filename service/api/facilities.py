@@ -29,12 +29,17 @@ def list_facilities(request: Request, status: Status | None = None, plan: str | 
                     sort: Sort = "facility_id", descending: bool = False,
                     limit: int = Query(100, ge=1, le=1000), offset: Offset = 0,
                     format: Format | None = FormatQuery,
+                    region: str | None = Query(None, max_length=64,
+                                               description="facilities of one region"),
                     actor=Depends(analyst), m: Monitor = Depends(monitor)):
     if wants_csv(request, format):
+        if region is not None:   # refused before the download starts
+            from ..program_ops import check_region
+            check_region(m.store, region)
         return csv_response(m, "facilities", status=status, plan=plan, search=q, sort=sort,
-                            descending=descending)
+                            descending=descending, region=region)
     return m.facilities(status=status, plan=plan, search=q, sort=sort, descending=descending,
-                        limit=limit, offset=offset)
+                        limit=limit, offset=offset, region=region)
 
 
 @router.get("/{facility_id}", response_model=FacilityPublic,

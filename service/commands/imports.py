@@ -56,7 +56,10 @@ def import_facilities(monitor: Monitor, path: str, errors_file: str | None = Non
         for i, raw in enumerate(rows[start:start + BATCH], start=start):
             line = i + 2  # the header is line 1
             try:
-                body = FacilityCreate.model_validate({k: raw.get(k) for k in FACILITY_COLUMNS})
+                values = {k: raw.get(k) for k in FACILITY_COLUMNS}
+                if (raw.get("region") or "").strip():   # optional column; empty = no region
+                    values["region"] = raw["region"].strip()
+                body = FacilityCreate.model_validate(values)
             except ValidationError as exc:
                 errors += [(line, e["field"], e["message"]) for e in validation_errors(exc)]
                 continue
@@ -64,7 +67,7 @@ def import_facilities(monitor: Monitor, path: str, errors_file: str | None = Non
                 errors.append((line, "plan", f"unknown plan {body.plan!r}"))
                 continue
             good.append((body.facility_id, body.name, body.plan,
-                         monitor.plans.snapshot(body.plan)))
+                         monitor.plans.snapshot(body.plan), body.region))
             where.append(line)
         for line, failure in zip(where, monitor.store.add_facilities(good, utc_now(), actor)):
             if failure is None:

@@ -15,6 +15,7 @@ from .common import KEY_PREFIX, ROLES, hash_key, plan_from_snapshot, plan_of
 from .facilities import FacilitiesMixin
 from .keys import KeysMixin
 from .outbox import OutboxMixin, SessionMixin
+from .program import ProgramMixin
 from .records import IngestOutcome, RecordIn, RecordsMixin
 
 __all__ = ["Store", "RecordIn", "IngestOutcome", "hash_key", "plan_of", "plan_from_snapshot",
@@ -22,5 +23,5 @@ __all__ = ["Store", "RecordIn", "IngestOutcome", "hash_key", "plan_of", "plan_fr
 
 
 class Store(KeysMixin, FacilitiesMixin, RecordsMixin, AlertsMixin, OutboxMixin, SessionMixin,
-            StoreBase):
+            ProgramMixin, StoreBase):
     """Access to one SQLite file; safe to share between threads (one connection each)."""

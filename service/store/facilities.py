@@ -10,30 +10,42 @@ from ..stats import MONITORING
 
 class FacilitiesMixin:
     def add_facility(self, facility_id: str, name: str, plan_name: str, snapshot: dict,
-                     now: str, actor) -> None:
+                     now: str, actor, region: str | None = None) -> None:
         with self.write() as conn:
-            self._insert_facility(conn, facility_id, name, plan_name, snapshot, now, actor)
+            self._insert_facility(conn, facility_id, name, plan_name, snapshot, now, actor,
+                                  region)
 
-    def _insert_facility(self, conn, facility_id, name, plan_name, snapshot, now, actor):
+    def _insert_facility(self, conn, facility_id, name, plan_name, snapshot, now, actor,
+                         region=None):
         if conn.execute("SELECT 1 FROM facilities WHERE facility_id = ?",
                         (facility_id,)).fetchone():
             raise Conflict(f"facility {facility_id!r} is already registered",
                            facility_id=facility_id)
-        conn.execute("INSERT INTO facilities (facility_id, name, plan, created_at, current_cycle) "
-                     "VALUES (?, ?, ?, ?, 1)", (facility_id, name, plan_name, now))
+        if region is None:
+            conn.execute("INSERT INTO facilities (facility_id, name, plan, created_at, "
+                         "current_cycle) VALUES (?, ?, ?, ?, 1)",
+                         (facility_id, name, plan_name, now))
+        else:
+            conn.execute("INSERT INTO facilities (facility_id, name, plan, created_at, "
+                         "current_cycle, region) VALUES (?, ?, ?, ?, 1, ?)",
+                         (facility_id, name, plan_name, now, region))
         self._insert_cycle(conn, facility_id, 1, plan_name, snapshot, now)
         self._log(conn, now, actor, "facility_registered",
-                  {"name": name, "plan": plan_name}, facility_id=facility_id, cycle=1)
+                  {"name": name, "plan": plan_name, **({"region": region} if region else {})},
+                  facility_id=facility_id, cycle=1)
 
-    def add_facilities(self, rows: list[tuple[str, str, str, dict]], now: str,
-                       actor) -> list[str | None]:
-        """Register many facilities in one transaction; per row None or the reason it failed."""
+    def add_facilities(self, rows: list[tuple], now: str, actor) -> list[str | None]:
+        """Register many facilities in one transaction; per row None or the reason it failed.
+
+        Rows are (facility_id, name, plan, snapshot) or with a fifth item, the region.
+        """
         out: list[str | None] = []
         with self.write() as conn:
-            for facility_id, name, plan_name, snapshot in rows:
+            for facility_id, name, plan_name, snapshot, *more in rows:
                 try:
                     conn.execute("SAVEPOINT one")
-                    self._insert_facility(conn, facility_id, name, plan_name, snapshot, now, actor)
+                    self._insert_facility(conn, facility_id, name, plan_name, snapshot, now, actor,
+                                          more[0] if more else None)
                     conn.execute("RELEASE one")
                     out.append(None)
                 except Conflict as exc:
@@ -52,15 +64,19 @@ class FacilitiesMixin:
 
     def facility(self, facility_id: str) -> dict:
         rows = self.read("SELECT f.facility_id, f.name, f.plan, f.created_at, f.current_cycle, "
-                         "c.* FROM facilities f JOIN cycles c ON c.facility_id = f.facility_id "
-                         "AND c.cycle = f.current_cycle WHERE f.facility_id = ?", (facility_id,))
+                         "f.region, c.* FROM facilities f JOIN cycles c ON "
+                         "c.facility_id = f.facility_id AND c.cycle = f.current_cycle "
+                         "WHERE f.facility_id = ?", (facility_id,))
         if not rows:
             raise NotFound(f"no facility {facility_id!r}", facility_id=facility_id)
         return rows[0]
 
     def facilities(self, status=None, plan=None, search=None, sort="facility_id",
-                   descending=False, limit=100, offset=0) -> tuple[list[dict], int]:
+                   descending=False, limit=100, offset=0, region=None) -> tuple[list[dict], int]:
         where, params = [], []
+        if region is not None:
+            where.append("f.region = ?")
+            params.append(region)
         if status is not None:
             where.append("c.status = ?")
             params.append(status)
@@ -82,7 +98,7 @@ class FacilitiesMixin:
                 f"AND c.cycle = f.current_cycle {clause}")
         total = self.read(f"SELECT COUNT(*) AS n {base}", params)[0]["n"]
         rows = self.read(f"SELECT f.facility_id, f.name, f.plan, f.created_at, f.current_cycle, "
-                         f"c.* {base} ORDER BY {order}, f.facility_id LIMIT ? OFFSET ?",
+                         f"f.region, c.* {base} ORDER BY {order}, f.facility_id LIMIT ? OFFSET ?",
                          [*params, limit, offset])
         return rows, total
 

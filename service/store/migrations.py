@@ -91,7 +91,13 @@ def _v4(db: sqlite_utils.Database) -> None:
     db.execute("ALTER TABLE records DROP COLUMN content_hash")
 
 
-MIGRATIONS = [_v1, _v2, _v3, _v4]
+def _v5(db: sqlite_utils.Database) -> None:
+    """Facilities get an optional region (the audit program can be limited to one)."""
+    db.execute("ALTER TABLE facilities ADD COLUMN region TEXT")
+    db.execute("CREATE INDEX idx_facilities_region ON facilities (region)")
+
+
+MIGRATIONS = [_v1, _v2, _v3, _v4, _v5]
 
 
 def migrate(db: sqlite_utils.Database) -> int:

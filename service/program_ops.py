@@ -1,0 +1,172 @@
+"""The audit program's operations: store rows in, the pure program functions, answers out.
+
+Shared by the API (service/api/program.py), the CLI (service/commands/program.py)
+and the dashboard. No SQL here (queries in service/store/program.py), no HTTP.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import json
+
+import numpy as np
+
+from . import program
+from .errors import Invalid
+from .store import plan_of
+
+#: Largest weekly budget accepted (audits a week); far above any office's capacity.
+MAX_BUDGET = 1_000_000
+MAX_RUNS = 5000
+
+
+def check_budget(budget) -> int:
+    if budget is None:
+        return None
+    if isinstance(budget, bool) or not isinstance(budget, int) or budget < 1:
+        raise Invalid(f"budget must be a whole number of audits a week of at least 1, "
+                      f"got {budget!r}", field="budget")
+    if budget > MAX_BUDGET:
+        raise Invalid(f"budget must be at most {MAX_BUDGET}, got {budget}", field="budget")
+    return budget
+
+
+def check_region(store, region: str | None) -> str | None:
+    if region is None:
+        return None
+    if not store.region_known(region):
+        known = store.regions()
+        listed = ", ".join(known) if known else "none registered"
+        raise Invalid(f"unknown region {region!r}; regions: {listed}", field="region")
+    return region
+
+
+def forecast(store, region: str | None = None, budget: int | None = None,
+             runs: int = program.RUNS, seed: int = program.SEED) -> dict:
+    """The register forecast of the open cycles (of one region)."""
+    region = check_region(store, region)
+    budget = check_budget(budget)
+    if isinstance(runs, bool) or not isinstance(runs, int) or not 2 <= runs <= MAX_RUNS:
+        raise Invalid(f"runs must be a whole number from 2 to {MAX_RUNS}, got {runs!r}",
+                      field="runs")
+    rows = store.open_cycles(region)
+    cycles = [program.OpenCycle(r["facility_id"], r["cycle"], r["plan_json"],
+                                plan_of(r["plan_json"]), r["units"], r["nonconforming"])
+              for r in rows]
+    out = program.forecast(cycles, budget=budget, runs=runs, seed=seed)
+    for row, r in zip(out["cycles"], rows):
+        row["plan"] = r["plan"]
+        row["region"] = r["region"]
+    out["region"] = region
+    return out
+
+
+def _age_days(rows: list[dict], now: str) -> np.ndarray:
+    """Days from each cycle's last record (or its opening) to ``now`` (UTC text, ...Z)."""
+    if not rows:
+        return np.zeros(0)
+    texts = [(r["last_record_at"] or r["opened_at"]).rstrip("Z") for r in rows]
+    at = np.array(texts, dtype="datetime64[us]")
+    now_at = np.datetime64(now.rstrip("Z"), "us")
+    return (now_at - at).astype(np.float64) / 86_400e6
+
+
+def visits(store, plans, now: str, budget: int, region: str | None = None,
+           per_visit: int = program.PER_VISIT, stale_default: float | None = 14.0,
+           watch_high=None, draw_units=None) -> dict:
+    """This week's visits under ``budget`` audits.
+
+    ``watch_high(facility_ids) -> set`` and ``draw_units(facility_id, k) -> list`` are the
+    hooks for the watch chart and for open draws (units in draw order); without them no
+    facility counts as high and units are not named.
+    """
+    budget = check_budget(budget)
+    if budget is None:
+        raise Invalid("budget is required: audits available this week", field="budget")
+    region = check_region(store, region)
+    if isinstance(per_visit, bool) or not isinstance(per_visit, int) or not 1 <= per_visit <= 1000:
+        raise Invalid(f"per_visit must be a whole number from 1 to 1000, got {per_visit!r}",
+                      field="per_visit")
+    rows = store.open_cycles(region)
+    size = len(rows)
+    ids = [r["facility_id"] for r in rows]
+    cache: dict[str, tuple] = {}
+    upper, lower, g1, g2, stale = (np.empty(size) for _ in range(5))
+    for i, r in enumerate(rows):
+        key = r["plan_json"]
+        got = cache.get(key)
+        if got is None:
+            pl = plan_of(key)
+            name = json.loads(key).get("name") or r["plan"]
+            spec = plans.specs.get(name) if plans is not None else None
+            days = spec.stale_after_days if spec is not None and spec.stale_after_days else None
+            got = cache[key] = (pl.upper_llr, pl.lower_llr, pl.g1, pl.g2,
+                                days or stale_default or 14.0)
+        upper[i], lower[i], g1[i], g2[i], stale[i] = got
+    high = watch_high(ids) if watch_high is not None else set()
+    x = program.VisitInputs(
+        n=np.fromiter((r["units"] for r in rows), dtype=np.int64, count=size),
+        d=np.fromiter((r["nonconforming"] for r in rows), dtype=np.int64, count=size),
+        upper=upper, lower=lower, g1=g1, g2=g2, age_days=_age_days(rows, now),
+        stale_days=stale, watch_high=np.array([i in high for i in ids], dtype=bool))
+    s = program.visit_scores(x, per_visit)
+    order = program.rank(s.score, ids)
+    give = program.allocate(order, s.units, budget)
+    items = []
+    for rank_no, i in enumerate(order[give[order] > 0].tolist(), start=1):
+        r = rows[i]
+        k = int(give[i])
+        item = {"rank": rank_no, "facility_id": r["facility_id"], "name": r["name"],
+                "region": r["region"], "plan": r["plan"], "cycle": r["cycle"],
+                "units": k, "score": round(float(s.score[i]), 4),
+                "units_so_far": int(x.n[i]), "nonconforming_so_far": int(x.d[i]),
+                "position": round(float(s.position[i]), 4),
+                "reason": program.reason(s.parts, i, float(s.position[i]), int(s.to_clear[i]),
+                                         int(s.to_flag[i]), float(x.age_days[i]),
+                                         float(x.stale_days[i]), per_visit)}
+        if draw_units is not None:
+            item["unit_refs"] = draw_units(r["facility_id"], k)
+        items.append(item)
+    return {"budget": budget, "region": region, "per_visit": per_visit,
+            "open_cycles": size, "facilities": len(items),
+            "units": int(give.sum()), "visits": items,
+            "score": "documented in the README, 'Running the audit program'"}
+
+
+VISIT_COLUMNS = ("rank", "facility_id", "name", "region", "plan", "cycle", "units", "score",
+                 "units_so_far", "nonconforming_so_far", "reason")
+
+
+def _cell(value) -> str:
+    """A CSV cell; text that a spreadsheet would run as a formula gets a leading quote."""
+    if value is None:
+        return ""
+    text = str(value)
+    if isinstance(value, str) and text[:1] in ("=", "+", "-", "@", "\t", "\r"):
+        return "'" + text
+    return text
+
+
+def visits_csv(answer: dict) -> str:
+    """The visit list as CSV (one row per facility)."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\r\n")
+    w.writerow(VISIT_COLUMNS)
+    for item in answer["visits"]:
+        w.writerow([_cell(item.get(c)) for c in VISIT_COLUMNS])
+    return buf.getvalue()
+
+
+def hooks(store) -> dict:
+    """The watch-chart and open-draw hooks the store offers, when those features exist.
+
+    A store with ``watch_high_facilities(ids) -> set`` (the watch chart) or
+    ``draw_next_units(facility_id, k) -> list`` (open draws, in draw order) is used;
+    otherwise the visit list works without them.
+    """
+    out = {}
+    if hasattr(store, "watch_high_facilities"):
+        out["watch_high"] = store.watch_high_facilities
+    if hasattr(store, "draw_next_units"):
+        out["draw_units"] = store.draw_next_units
+    return out
