@@ -229,20 +229,30 @@ def visit_scores(x: VisitInputs, per_visit: int = PER_VISIT) -> VisitScores:
                                                "stale": stale, "watch": watch})
 
 
-def rank(score: np.ndarray, ids: list[str] | None = None) -> np.ndarray:
-    """Indices in visit order: score descending, ties by id (or index)."""
-    if ids is None:
-        return np.lexsort((np.arange(score.size), -score))
-    keys = np.unique(np.asarray(ids, dtype=object), return_inverse=True)[1]
-    return np.lexsort((keys, -score))
+def rank(score: np.ndarray) -> np.ndarray:
+    """Indices in visit order: score descending, ties by position (rows come in id order)."""
+    return np.lexsort((np.arange(score.size), -score))
 
 
-def allocate(order: np.ndarray, units: np.ndarray, budget: int) -> np.ndarray:
-    """Units given to each cycle when the budget is spent in ``order``."""
-    want = units[order]
-    before = np.concatenate([[0], np.cumsum(want)[:-1]])
+def allocate(units: np.ndarray, score: np.ndarray, budget: int,
+             group: np.ndarray | None = None) -> np.ndarray:
+    """Units given to each cycle when each group's budget is spent in visit order.
+
+    ``group`` (e.g. the run of a simulation) gives every group its own budget;
+    cycles with a score of -inf are never served.
+    """
+    size = score.size
+    if group is None:
+        group = np.zeros(size, dtype=np.int64)
+    order = np.lexsort((np.arange(size), -score, group))
+    want = np.where(np.isfinite(score), units, 0)[order]
+    done = np.cumsum(want) - want
+    g = group[order]
+    starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if size else np.zeros(0, dtype=int)
+    lengths = np.diff(np.r_[starts, size])
+    before = done - np.repeat(done[starts], lengths)
     give = np.clip(budget - before, 0, want)
-    out = np.zeros(units.size, dtype=np.int64)
+    out = np.zeros(size, dtype=np.int64)
     out[order] = give
     return out
 

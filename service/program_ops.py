@@ -110,8 +110,8 @@ def visits(store, plans, now: str, budget: int, region: str | None = None,
         upper=upper, lower=lower, g1=g1, g2=g2, age_days=_age_days(rows, now),
         stale_days=stale, watch_high=np.array([i in high for i in ids], dtype=bool))
     s = program.visit_scores(x, per_visit)
-    order = program.rank(s.score, ids)
-    give = program.allocate(order, s.units, budget)
+    order = program.rank(s.score)          # rows come in facility_id order
+    give = program.allocate(s.units, s.score, budget)
     items = []
     for rank_no, i in enumerate(order[give[order] > 0].tolist(), start=1):
         r = rows[i]
