@@ -394,7 +394,7 @@ def _add_program(sub) -> None:
     fc = acts.add_parser("forecast", help="exact figures of every open cycle and their sums")
     fc.add_argument("--budget", type=_whole, default=None,
                     help="audits a week: add the weeks to decide 50 %% and 90 %% of the cycles")
-    fc.add_argument("--runs", type=_whole, default=400, help="simulation runs (default 400)")
+    fc.add_argument("--runs", type=_whole, default=200, help="simulation runs (default 200)")
     fc.add_argument("--seed", type=_whole, default=20260415, help="simulation seed")
     fc.add_argument("--json", action="store_true", help="print one JSON object")
     vs = acts.add_parser("visits", help="facilities to visit this week under a budget")

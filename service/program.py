@@ -47,7 +47,7 @@ NEAR_POINTS = 1.5
 STALE_CAP = 2.0
 WATCH_POINTS = 2.0
 PER_VISIT = 20
-RUNS = 400
+RUNS = 200
 SEED = 20260415
 SHARES = (0.5, 0.9)
 
@@ -67,53 +67,66 @@ class OpenCycle:
 
 def forecast(cycles: list[OpenCycle], budget: int | None = None, runs: int = RUNS,
              seed: int = SEED) -> dict:
+    """:func:`forecast_columns` for a list of :class:`OpenCycle`."""
+    plans = {c.plan_key: c.plan for c in cycles}
+    return forecast_columns([c.facility_id for c in cycles], [c.cycle for c in cycles],
+                            [c.plan_key for c in cycles], plans,
+                            [c.n for c in cycles], [c.d for c in cycles],
+                            budget=budget, runs=runs, seed=seed)
+
+
+ROW_KEYS = ("facility_id", "cycle", "units", "nonconforming", "llr",
+            "p_flag_p0", "p_clear_p0", "p_flag_p1", "p_clear_p1", "further_p0", "further_p1",
+            *(f"further_p{r}_q{round(q * 100)}" for r in (0, 1) for q in QUANTILES))
+
+
+def forecast_columns(facility_ids: list[str], cycle_nos: list[int], plan_keys: list[str],
+                     plans: dict, n, d, budget: int | None = None, runs: int = RUNS,
+                     seed: int = SEED) -> dict:
     """Exact per-cycle figures, register totals and (with ``budget``) weeks to decide.
 
-    Cycles are grouped by plan and each distinct (n, d) is computed once
-    (:func:`service.stats.register.conditioned`).
+    Cycles come column by column; ``plans`` maps each plan key (e.g. the stored
+    snapshot text) to its plan. Cycles are grouped by plan and each distinct
+    (n, d) is computed once (:func:`service.stats.register.conditioned`).
     """
-    groups: dict[str, list[int]] = {}
-    for i, c in enumerate(cycles):
-        groups.setdefault(c.plan_key, []).append(i)
-    size = len(cycles)
-    pf0 = np.zeros(size)
-    pc1 = np.zeros(size)
-    pf1 = np.zeros(size)
-    pc0 = np.zeros(size)
-    e0 = np.zeros(size)
-    e1 = np.zeros(size)
-    qs = {(r, q): np.zeros(size, dtype=np.int64) for r in (0, 1) for q in QUANTILES}
-    llr = np.zeros(size)
+    size = len(facility_ids)
+    n = np.asarray(n, dtype=np.int64).reshape(-1)
+    d = np.asarray(d, dtype=np.int64).reshape(-1)
+    keys = list(plans)
+    code = {k: i for i, k in enumerate(keys)}
+    group = np.fromiter((code[k] for k in plan_keys), dtype=np.int64, count=size)
+    cols = {name: np.zeros(size) for name in ("p_flag_p0", "p_clear_p0", "p_flag_p1",
+                                               "p_clear_p1", "further_p0", "further_p1", "llr")}
+    qcols = {(r, q): np.zeros(size, dtype=np.int64) for r in (0, 1) for q in QUANTILES}
     laws = []
-    for idx in groups.values():
-        plan = cycles[idx[0]].plan
-        idx_a = np.asarray(idx)
-        n = np.fromiter((cycles[i].n for i in idx), dtype=np.int64, count=len(idx))
-        d = np.fromiter((cycles[i].d for i in idx), dtype=np.int64, count=len(idx))
-        fig = conditioned(plan, n, d, [plan.p0, plan.p1], keep_distribution=budget is not None)
-        pf0[idx_a], pf1[idx_a] = fig.p_flag
-        pc0[idx_a], pc1[idx_a] = fig.p_clear
-        e0[idx_a], e1[idx_a] = fig.further
+    for g, key in enumerate(keys):
+        idx = np.flatnonzero(group == g)
+        if idx.size == 0:
+            continue
+        plan = plans[key]
+        fig = conditioned(plan, n[idx], d[idx], [plan.p0, plan.p1],
+                          keep_distribution=budget is not None)
+        cols["p_flag_p0"][idx], cols["p_flag_p1"][idx] = fig.p_flag
+        cols["p_clear_p0"][idx], cols["p_clear_p1"][idx] = fig.p_clear
+        cols["further_p0"][idx], cols["further_p1"][idx] = fig.further
         for q in QUANTILES:
-            qs[(0, q)][idx_a], qs[(1, q)][idx_a] = fig.quantiles[q]
-        llr[idx_a] = plan.llr(n, d)
-        laws.append((idx_a, fig))
-    rows = [{"facility_id": c.facility_id, "cycle": c.cycle, "units": c.n, "nonconforming": c.d,
-             "llr": float(llr[i]),
-             "p_flag_p0": float(pf0[i]), "p_clear_p0": float(pc0[i]),
-             "p_flag_p1": float(pf1[i]), "p_clear_p1": float(pc1[i]),
-             "further_p0": float(e0[i]), "further_p1": float(e1[i]),
-             **{f"further_p{r}_q{round(q * 100)}": int(qs[(r, q)][i])
-                for r in (0, 1) for q in QUANTILES}}
-            for i, c in enumerate(cycles)]
+            qcols[(0, q)][idx], qcols[(1, q)][idx] = fig.quantiles[q]
+        cols["llr"][idx] = plan.llr(n[idx], d[idx])
+        laws.append((idx, fig))
+    columns = [facility_ids, cycle_nos, n.tolist(), d.tolist(), cols["llr"].tolist(),
+               *(cols[k].tolist() for k in ("p_flag_p0", "p_clear_p0", "p_flag_p1",
+                                            "p_clear_p1", "further_p0", "further_p1")),
+               *(qcols[(r, q)].tolist() for r in (0, 1) for q in QUANTILES)]
+    rows = [dict(zip(ROW_KEYS, values)) for values in zip(*columns)]
     out = {"totals": {"open_cycles": size,
-                      "expected_false_flags": float(pf0.sum()),
-                      "expected_missed": float(pc1.sum()),
-                      "expected_audits_p0": float(e0.sum()),
-                      "expected_audits_p1": float(e1.sum())},
+                      "expected_false_flags": float(cols["p_flag_p0"].sum()),
+                      "expected_missed": float(cols["p_clear_p1"].sum()),
+                      "expected_audits_p0": float(cols["further_p0"].sum()),
+                      "expected_audits_p1": float(cols["further_p1"].sum())},
            "cycles": rows}
     if budget is not None:
-        out["weeks"] = weeks_to_decide(laws, size, (e0, e1), budget, runs, seed)
+        out["weeks"] = weeks_to_decide(laws, size, (cols["further_p0"], cols["further_p1"]),
+                                       budget, runs, seed)
     return out
 
 
@@ -139,13 +152,10 @@ def weeks_to_decide(laws, size: int, expected, budget: int, runs: int = RUNS,
     for r in (0, 1):
         draws = np.empty((runs, size), dtype=np.int64)
         for idx_a, fig in laws:
-            # one block of uniforms per distinct state, mapped through its exact law
-            keys = fig.index
-            for k in np.unique(keys):
-                cols = idx_a[keys == k]
-                state = int(np.flatnonzero(keys == k)[0])
-                u = rng.random(runs * cols.size)
-                draws[:, cols] = fig.draw_further(r, state, u).reshape(runs, cols.size)
+            # one uniform per (run, cycle), mapped through the cycle's exact law
+            m = idx_a.size
+            states = np.tile(np.arange(m), runs)
+            draws[:, idx_a] = fig.draw_many(r, states, rng.random(runs * m)).reshape(runs, m)
         order = np.argsort(expected[r], kind="stable")
         total = np.cumsum(draws[:, order], axis=1)
         row = {}

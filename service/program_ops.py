@@ -49,23 +49,23 @@ def forecast(store, region: str | None = None, budget: int | None = None,
     if isinstance(runs, bool) or not isinstance(runs, int) or not 2 <= runs <= MAX_RUNS:
         raise Invalid(f"runs must be a whole number from 2 to {MAX_RUNS}, got {runs!r}",
                       field="runs")
-    rows = store.open_cycles(region)
-    cycles = [program.OpenCycle(r["facility_id"], r["cycle"], r["plan_json"],
-                                plan_of(r["plan_json"]), r["units"], r["nonconforming"])
-              for r in rows]
-    out = program.forecast(cycles, budget=budget, runs=runs, seed=seed)
-    for row, r in zip(out["cycles"], rows):
-        row["plan"] = r["plan"]
-        row["region"] = r["region"]
+    c = store.open_cycle_columns(region)
+    plans = {key: plan_of(key) for key in set(c["plan_json"])}
+    out = program.forecast_columns(c["facility_id"], c["cycle"], c["plan_json"], plans,
+                                   c["units"], c["nonconforming"], budget=budget, runs=runs,
+                                   seed=seed)
+    for row, plan, reg in zip(out["cycles"], c["plan"], c["region"]):
+        row["plan"] = plan
+        row["region"] = reg
     out["region"] = region
     return out
 
 
-def _age_days(rows: list[dict], now: str) -> np.ndarray:
+def _age_days(last: list, opened: list, now: str) -> np.ndarray:
     """Days from each cycle's last record (or its opening) to ``now`` (UTC text, ...Z)."""
-    if not rows:
+    if not last:
         return np.zeros(0)
-    texts = [(r["last_record_at"] or r["opened_at"]).rstrip("Z") for r in rows]
+    texts = [(a or b).rstrip("Z") for a, b in zip(last, opened)]
     at = np.array(texts, dtype="datetime64[us]")
     now_at = np.datetime64(now.rstrip("Z"), "us")
     return (now_at - at).astype(np.float64) / 86_400e6
@@ -87,37 +87,37 @@ def visits(store, plans, now: str, budget: int, region: str | None = None,
     if isinstance(per_visit, bool) or not isinstance(per_visit, int) or not 1 <= per_visit <= 1000:
         raise Invalid(f"per_visit must be a whole number from 1 to 1000, got {per_visit!r}",
                       field="per_visit")
-    rows = store.open_cycles(region)
-    size = len(rows)
-    ids = [r["facility_id"] for r in rows]
-    cache: dict[str, tuple] = {}
-    upper, lower, g1, g2, stale = (np.empty(size) for _ in range(5))
-    for i, r in enumerate(rows):
-        key = r["plan_json"]
-        got = cache.get(key)
-        if got is None:
-            pl = plan_of(key)
-            name = json.loads(key).get("name") or r["plan"]
-            spec = plans.specs.get(name) if plans is not None else None
-            days = spec.stale_after_days if spec is not None and spec.stale_after_days else None
-            got = cache[key] = (pl.upper_llr, pl.lower_llr, pl.g1, pl.g2,
-                                days or stale_default or 14.0)
-        upper[i], lower[i], g1[i], g2[i], stale[i] = got
+    c = store.open_cycle_columns(region)
+    ids = c["facility_id"]
+    size = len(ids)
+    # plan numbers once per distinct snapshot, then gathered per cycle
+    keys = list(dict.fromkeys(c["plan_json"]))
+    table = np.empty((len(keys), 5))
+    for k, key in enumerate(keys):
+        pl = plan_of(key)
+        name = json.loads(key).get("name")
+        spec = plans.specs.get(name) if plans is not None and name else None
+        days = spec.stale_after_days if spec is not None and spec.stale_after_days else None
+        table[k] = (pl.upper_llr, pl.lower_llr, pl.g1, pl.g2, days or stale_default or 14.0)
+    code = {key: k for k, key in enumerate(keys)}
+    which = np.fromiter((code[key] for key in c["plan_json"]), dtype=np.int64, count=size)
+    per = table[which] if size else np.zeros((0, 5))
     high = watch_high(ids) if watch_high is not None else set()
     x = program.VisitInputs(
-        n=np.fromiter((r["units"] for r in rows), dtype=np.int64, count=size),
-        d=np.fromiter((r["nonconforming"] for r in rows), dtype=np.int64, count=size),
-        upper=upper, lower=lower, g1=g1, g2=g2, age_days=_age_days(rows, now),
-        stale_days=stale, watch_high=np.array([i in high for i in ids], dtype=bool))
+        n=np.asarray(c["units"], dtype=np.int64), d=np.asarray(c["nonconforming"], dtype=np.int64),
+        upper=per[:, 0], lower=per[:, 1], g1=per[:, 2], g2=per[:, 3],
+        age_days=_age_days(c["last_record_at"], c["opened_at"], now), stale_days=per[:, 4],
+        watch_high=np.array([i in high for i in ids], dtype=bool) if high
+        else np.zeros(size, dtype=bool))
     s = program.visit_scores(x, per_visit)
-    order = program.rank(s.score)          # rows come in facility_id order
-    give = program.allocate(s.units, s.score, budget)
+    give = program.allocate(s.units, s.score, budget)   # rows come in facility_id order
+    chosen = np.flatnonzero(give > 0)
+    chosen = chosen[program.rank(s.score[chosen])]
     items = []
-    for rank_no, i in enumerate(order[give[order] > 0].tolist(), start=1):
-        r = rows[i]
+    for rank_no, i in enumerate(chosen.tolist(), start=1):
         k = int(give[i])
-        item = {"rank": rank_no, "facility_id": r["facility_id"], "name": r["name"],
-                "region": r["region"], "plan": r["plan"], "cycle": r["cycle"],
+        item = {"rank": rank_no, "facility_id": ids[i], "name": c["name"][i],
+                "region": c["region"][i], "plan": c["plan"][i], "cycle": c["cycle"][i],
                 "units": k, "score": round(float(s.score[i]), 4),
                 "units_so_far": int(x.n[i]), "nonconforming_so_far": int(x.d[i]),
                 "position": round(float(s.position[i]), 4),
@@ -125,7 +125,7 @@ def visits(store, plans, now: str, budget: int, region: str | None = None,
                                          int(s.to_flag[i]), float(x.age_days[i]),
                                          float(x.stale_days[i]), per_visit)}
         if draw_units is not None:
-            item["unit_refs"] = draw_units(r["facility_id"], k)
+            item["unit_refs"] = draw_units(ids[i], k)
         items.append(item)
     return {"budget": budget, "region": region, "per_visit": per_visit,
             "open_cycles": size, "facilities": len(items),

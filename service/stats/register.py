@@ -103,46 +103,59 @@ class StateFigures:
     index: np.ndarray | None = None
 
     def draw_further(self, row: int, state: int, u: np.ndarray) -> np.ndarray:
-        """Further units to a decision of state ``state`` at rate ``p[row]``, one per uniform.
+        """Further units to a decision of state ``state`` at rate ``p[row]``, one per uniform."""
+        u = np.asarray(u, dtype=float)
+        return self.draw_many(row, np.full(u.shape, state, dtype=np.int64), u)
+
+    def draw_many(self, row: int, states: np.ndarray, u: np.ndarray) -> np.ndarray:
+        """Further units to a decision at rate ``p[row]``: one draw per (state, uniform) pair.
 
         Exact inverse-transform sampling: a uniform below the state's early
         stop mass picks the early stop; above it, it picks the open point at
         ``front`` in proportion to its mass and, rescaled to (0, 1], the stop
         from that point. Draws in the open residual (below 1e-12 for
-        untruncated plans) get the last unit computed.
+        untruncated plans) get the last unit computed. Every search runs over
+        all draws at once: the rows of a CDF table are laid end to end with
+        row k shifted by 2k, so one ``searchsorted`` serves every row.
         """
         law = self.law
         if law is None:
             raise ValueError("the stop distribution was not kept")
-        k = int(self.index[state])
-        u = np.asarray(u, dtype=float)
-        early = law.early_cdf[row, k]
-        out = np.empty(u.shape, dtype=np.int64)
-        in_early = u <= early[-1]
+        u = np.asarray(u, dtype=float).reshape(-1)
+        k = self.index[np.asarray(states, dtype=np.int64).reshape(-1)]
+        out = np.empty(u.size, dtype=np.int64)
+        early = law.early_cdf[row]                                  # (S, L)
+        top = early[k, -1]
+        in_early = u <= top
         if in_early.any():
-            out[in_early] = np.searchsorted(early, u[in_early], side="left") + law.base
+            out[in_early] = _row_search(early, k[in_early], u[in_early]) + law.base
         late = ~in_early
         if late.any():
-            v = u[late] - early[-1]
-            fm = law.front_mass[row, k]
-            cm = np.cumsum(fm)
-            j = np.minimum(np.searchsorted(cm, v, side="left"), fm.size - 1)
-            prev = np.where(j > 0, cm[np.maximum(j - 1, 0)], 0.0)
-            w = np.clip((v - prev) / np.where(fm[j] > 0, fm[j], 1.0), 0.0, 1.0)
-            cdf = law.late_cdf[row]
-            t = np.array([np.searchsorted(cdf[jj], ww, side="left") for jj, ww in zip(j, w)]) \
-                if j.size < 64 else _search_rows(cdf, j, w)
-            out[late] = np.minimum(t, cdf.shape[1] - 1) + law.front
-        return out - int(self.n[state])
+            v = u[late] - top[late]
+            kk = k[late]
+            fm = law.front_mass[row]                                # (S, W)
+            cm = np.cumsum(fm, axis=1)
+            j = np.minimum(_row_search(cm, kk, v), fm.shape[1] - 1)
+            prev = np.where(j > 0, cm[kk, np.maximum(j - 1, 0)], 0.0)
+            mass = fm[kk, j]
+            w = np.clip((v - prev) / np.where(mass > 0, mass, 1.0), 0.0, 1.0)
+            cdf = law.late_cdf[row]                                 # (W, T)
+            t = np.minimum(_row_search(cdf, j, w), cdf.shape[1] - 1)
+            out[late] = t + law.front
+        return out - self.n[np.asarray(states, dtype=np.int64).reshape(-1)]
 
 
-def _search_rows(cdf: np.ndarray, rows: np.ndarray, values: np.ndarray) -> np.ndarray:
-    """searchsorted of each value in its own row of ``cdf`` (rows grouped)."""
-    out = np.empty(values.size, dtype=np.int64)
-    for r in np.unique(rows):
-        sel = rows == r
-        out[sel] = np.searchsorted(cdf[r], values[sel], side="left")
-    return out
+def _row_search(table: np.ndarray, rows: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """``searchsorted(table[rows[i]], values[i], 'left')`` for every i, in one call.
+
+    Each row is nondecreasing within [0, 1] (up to rounding): shifting row r by 2r
+    makes the whole table one sorted array.
+    """
+    width = table.shape[1]
+    shift = 2.0 * np.arange(table.shape[0])
+    flat = (np.minimum(table, 1.0) + shift[:, None]).reshape(-1)
+    pos = np.searchsorted(flat, values + shift[rows], side="left")
+    return np.clip(pos - rows * width, 0, width)
 
 
 def _check_states(plan: SprtPlan, n: np.ndarray, d: np.ndarray) -> None:
@@ -271,6 +284,26 @@ class _Walker:
 
 def _tail(plan: SprtPlan, front: int, p: np.ndarray, residual_tol: float,
           max_steps: int) -> dict:
+    """Futures of the open points (front, d), kept for the last few (plan, front, rates):
+    the arrays are read-only and depend on nothing else."""
+    key = (plan, front, tuple(p.tolist()), residual_tol, max_steps)
+    got = _TAILS.get(key)
+    if got is None:
+        got = _tail_run(plan, front, p, residual_tol, max_steps)
+        for v in got.values():
+            if isinstance(v, np.ndarray):
+                v.flags.writeable = False
+        if len(_TAILS) >= 64:
+            _TAILS.pop(next(iter(_TAILS)))
+        _TAILS[key] = got
+    return got
+
+
+_TAILS: dict = {}
+
+
+def _tail_run(plan: SprtPlan, front: int, p: np.ndarray, residual_tol: float,
+              max_steps: int) -> dict:
     """Futures of the open points (front, d): stop distribution over absolute n from front.
 
     Rows are r * W + j for rate r and open point j (d = lo + j).
