@@ -69,6 +69,8 @@ class SecurityHeaders:
 
 def install_ui(app: FastAPI) -> None:
     app.include_router(router)
+    from .program_pages import router as program_router
+    app.include_router(program_router)
 
     @app.get("/", include_in_schema=False)
     async def _home():

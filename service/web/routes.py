@@ -232,10 +232,12 @@ def ack(request: Request, alert_id: int, note: str = Form(""), csrf: str = Form(
 @router.get("/workbench", response_class=HTMLResponse)
 def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str = "0.05",
               beta: str = "0.10", max_units: str = "", calibrate: str = "",
+              register_size: str = "", register_false_flags: str = "",
               user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
     form = {"p0": p0, "p1": p1, "alpha": alpha, "beta": beta, "max_units": max_units,
-            "calibrate": bool(calibrate)}
-    result, error, charts = None, None, None
+            "calibrate": bool(calibrate), "register_size": register_size,
+            "register_false_flags": register_false_flags}
+    result, error, charts, register = None, None, None, None
     if "p0" in request.query_params:
         from ..stats import design
         try:
@@ -251,7 +253,13 @@ def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str =
                     error = "The cap must be a whole number of units, or empty for none."
             if error is None:
                 try:
-                    res = design(**values, max_units=cap, calibrate=bool(calibrate))
+                    if register_size.strip() or register_false_flags.strip():
+                        from ..program import register_from_form
+                        res, register = register_from_form(values, register_size,
+                                                           register_false_flags, cap,
+                                                           bool(calibrate))
+                    else:
+                        res = design(**values, max_units=cap, calibrate=bool(calibrate))
                     result = res.to_dict()
                 except PlanInputError as exc:
                     error = f"{exc.argument}: {exc}"
@@ -267,4 +275,4 @@ def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str =
                                    "expected units to a decision", p["p0"], p["p1"],
                                    "Average sample number by true rate")}
     return page(request, "workbench.html", user, form=form, result=result, error=error,
-                charts=charts)
+                charts=charts, register=register)
