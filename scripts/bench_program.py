@@ -108,7 +108,7 @@ def plain_visits(rows: list[dict], budget: int, per_visit: int, stale_days: floa
         pos = min(max((llr - plan.lower_llr) / (plan.upper_llr - plan.lower_llr), 0.0), 1.0)
         to_clear = max(math.ceil((llr - plan.lower_llr) / plan.g2 - 1e-9), 1)
         to_flag = max(math.ceil((plan.upper_llr - llr) / plan.g1 - 1e-9), 1)
-        at = datetime.fromisoformat((r["last_record_at"] or r["opened_at"]).replace("Z", "+00:00"))
+        at = datetime.fromisoformat(r["since"].replace("Z", "+00:00"))
         age = (now - at).total_seconds() / 86400.0
         score = ((program.NEVER_POINTS if n == 0 else 0.0)
                  + program.LEAN_POINTS * max(0.0, 2.0 * pos - 1.0)

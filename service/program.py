@@ -241,7 +241,7 @@ def visit_scores(x: VisitInputs, per_visit: int = PER_VISIT) -> VisitScores:
 
 def rank(score: np.ndarray) -> np.ndarray:
     """Indices in visit order: score descending, ties by position (rows come in id order)."""
-    return np.lexsort((np.arange(score.size), -score))
+    return np.argsort(-score, kind="stable")
 
 
 def allocate(units: np.ndarray, score: np.ndarray, budget: int,
@@ -253,14 +253,17 @@ def allocate(units: np.ndarray, score: np.ndarray, budget: int,
     """
     size = score.size
     if group is None:
-        group = np.zeros(size, dtype=np.int64)
-    order = np.lexsort((np.arange(size), -score, group))
-    want = np.where(np.isfinite(score), units, 0)[order]
-    done = np.cumsum(want) - want
-    g = group[order]
-    starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if size else np.zeros(0, dtype=int)
-    lengths = np.diff(np.r_[starts, size])
-    before = done - np.repeat(done[starts], lengths)
+        order = np.argsort(-score, kind="stable")          # ties keep the row (id) order
+        want = np.where(np.isfinite(score), units, 0)[order]
+        before = np.cumsum(want) - want
+    else:
+        order = np.lexsort((np.arange(size), -score, group))
+        want = np.where(np.isfinite(score), units, 0)[order]
+        done = np.cumsum(want) - want
+        g = group[order]
+        starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if size else np.zeros(0, dtype=int)
+        lengths = np.diff(np.r_[starts, size])
+        before = done - np.repeat(done[starts], lengths)
     give = np.clip(budget - before, 0, want)
     out = np.zeros(size, dtype=np.int64)
     out[order] = give

@@ -61,12 +61,15 @@ def forecast(store, region: str | None = None, budget: int | None = None,
     return out
 
 
-def _age_days(last: list, opened: list, now: str) -> np.ndarray:
-    """Days from each cycle's last record (or its opening) to ``now`` (UTC text, ...Z)."""
-    if not last:
+def _age_days(since: list, now: str) -> np.ndarray:
+    """Days from each cycle's last record (or its opening) to ``now``.
+
+    Stored times are UTC text of one width, ``YYYY-MM-DDTHH:MM:SS.ffffffZ``: cutting the
+    ``Z`` off as fixed-width strings lets numpy parse them all at once.
+    """
+    if not since:
         return np.zeros(0)
-    texts = [(a or b).rstrip("Z") for a, b in zip(last, opened)]
-    at = np.array(texts, dtype="datetime64[us]")
+    at = np.array(since, dtype="U27").astype("U26").astype("datetime64[us]")
     now_at = np.datetime64(now.rstrip("Z"), "us")
     return (now_at - at).astype(np.float64) / 86_400e6
 
@@ -100,13 +103,13 @@ def visits(store, plans, now: str, budget: int, region: str | None = None,
         days = spec.stale_after_days if spec is not None and spec.stale_after_days else None
         table[k] = (pl.upper_llr, pl.lower_llr, pl.g1, pl.g2, days or stale_default or 14.0)
     code = {key: k for k, key in enumerate(keys)}
-    which = np.fromiter((code[key] for key in c["plan_json"]), dtype=np.int64, count=size)
+    which = np.array(list(map(code.__getitem__, c["plan_json"])), dtype=np.int64)
     per = table[which] if size else np.zeros((0, 5))
     high = watch_high(ids) if watch_high is not None else set()
     x = program.VisitInputs(
         n=np.asarray(c["units"], dtype=np.int64), d=np.asarray(c["nonconforming"], dtype=np.int64),
         upper=per[:, 0], lower=per[:, 1], g1=per[:, 2], g2=per[:, 3],
-        age_days=_age_days(c["last_record_at"], c["opened_at"], now), stale_days=per[:, 4],
+        age_days=_age_days(c["since"], now), stale_days=per[:, 4],
         watch_high=np.array([i in high for i in ids], dtype=bool) if high
         else np.zeros(size, dtype=bool))
     s = program.visit_scores(x, per_visit)

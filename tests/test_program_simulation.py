@@ -1,6 +1,6 @@
 """Choosing *which facility* to audit from past results leaves each facility's error rates
-as the plan's exact ones (optional skipping; Doob 1953, "Stochastic Processes", Wiley,
-ch. VII, the optional skipping theorem).
+as the plan's exact ones (the optional skipping theorem: J. L. Doob, "Stochastic
+Processes", Wiley, 1953; the chapter, III, from memory).
 
 A seeded simulation (numpy.random.default_rng) runs 24 facilities week by week under one
 budget, the visits chosen by the dashboard's own score (service.program.visit_scores /

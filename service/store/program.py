@@ -6,7 +6,7 @@ rows by the pure functions of :mod:`service.program`.
 from __future__ import annotations
 
 OPEN_COLUMNS = ("facility_id", "name", "plan", "region", "cycle", "plan_json", "units",
-                "nonconforming", "opened_at", "last_record_at", "record_count")
+                "nonconforming", "opened_at", "last_record_at", "record_count", "since")
 
 
 class ProgramMixin:
@@ -19,7 +19,8 @@ class ProgramMixin:
             params.append(region)
         return self._conn().execute(
             "SELECT f.facility_id, f.name, f.plan, f.region, c.cycle, c.plan_json, c.units, "
-            "c.nonconforming, c.opened_at, c.last_record_at, c.record_count "
+            "c.nonconforming, c.opened_at, c.last_record_at, c.record_count, "
+            "COALESCE(c.last_record_at, c.opened_at) "
             # CROSS JOIN keeps SQLite's join order: facilities in key order (no sort),
             # each current cycle found by its primary key
             "FROM facilities f CROSS JOIN cycles c ON c.facility_id = f.facility_id "
