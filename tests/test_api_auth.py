@@ -32,7 +32,6 @@ def routes(fid, rid, aid, hook, delivery):
         ("GET", "/v1/plans", None, "analyst", 200),
         ("GET", "/v1/plans/dispensers", None, "analyst", 200),
         ("GET", "/v1/program/forecast", None, "analyst", 200),
-        ("GET", "/v1/program/visits?budget=5", None, "analyst", 200),
         ("GET", "/metrics", None, "analyst", 200),
         ("GET", "/v1/actions", None, "admin", 200),
         ("GET", "/v1/keys", None, "admin", 200),
