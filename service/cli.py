@@ -380,6 +380,37 @@ def _add_export(sub) -> None:
     p.set_defaults(func=run)
 
 
+def _add_draw(sub) -> None:
+    p = sub.add_parser("draw", help="recompute a verifiable random draw (RFC 3797) offline")
+    acts = p.add_subparsers(dest="draw_command", parser_class=_Parser, metavar="ACTION")
+    acts.required = True
+    v = acts.add_parser("verify", help="print the ordered draw from a frame file and a seed")
+    v.add_argument("--frame", required=True, help="frame file: one unit ref per line, or CSV "
+                                                  "with a unit_ref column")
+    v.add_argument("--seed", required=True, help="the public seed, e.g. '9319 / 2 5 8 10 12'")
+    v.add_argument("--size", type=_unit_count, required=True, help="units drawn")
+    v.add_argument("--json", action="store_true", help="print one JSON object")
+    k = acts.add_parser("pick", help="print the bare RFC 3797 selections of a key string")
+    k.add_argument("--key", required=True, help="the key string, e.g. '9319./2.5.8.10.12./'")
+    k.add_argument("--pool", type=_unit_count, required=True, help="number of items")
+    k.add_argument("--size", type=_unit_count, required=True, help="selections to make")
+
+    def run(a, parser):
+        from .commands import draw as d
+        from .selection import SelectionInputError
+        try:
+            if a.draw_command == "verify":
+                return d.verify(a.frame, a.seed, a.size, a.json)
+            return d.bare_pick(a.key, a.pool, a.size)
+        except SelectionInputError as exc:
+            parser.error(f"argument --{exc.field if exc.field != 'file' else 'frame'}: {exc}")
+        except (OSError, UnicodeDecodeError) as exc:
+            parser.error(f"argument --frame: {exc}")
+
+    v.set_defaults(func=run)
+    k.set_defaults(func=run)
+
+
 def _whole(text: str) -> int:
     try:
         return int(text)
@@ -430,6 +461,7 @@ def build_parser() -> _Parser:
     _add_verify(sub)
     _add_export(sub)
     _add_program(sub)
+    _add_draw(sub)
     return parser
 
 
