@@ -4,6 +4,8 @@ import pytest
 
 from .conftest import new_facility, record
 
+FRAME = {"label": "week 45", "period_start": "2026-11-02", "period_end": "2026-11-08"}
+
 ROLES = [None, "field", "analyst", "admin", "revoked"]
 RANK = {"field": 0, "analyst": 1, "admin": 2}
 
@@ -37,6 +39,16 @@ def routes(fid, rid, aid, hook, delivery):
         ("GET", "/v1/keys", None, "admin", 200),
         ("POST", "/v1/keys", {"role": "field", "label": "tablet 9"}, "admin", 201),
         ("POST", "/v1/keys/1/revoke", None, "admin", 200),
+        ("POST", "/v1/facilities/GFID/frames", "frame", "analyst", 201),
+        ("POST", "/v1/facilities/GFID/frames/upload?label=w&period_start=2026-11-02&"
+                 "period_end=2026-11-08", "csv", "analyst", 201),
+        ("GET", "/v1/facilities/GFID/frames", None, "analyst", 200),
+        ("GET", "/v1/facilities/GFID/frames/FRAMEID", None, "analyst", 200),
+        ("GET", "/v1/facilities/GFID/frames/FRAMEID/canonical", None, "analyst", 200),
+        ("POST", "/v1/facilities/GFID/draws", "draw", "analyst", 201),
+        ("GET", "/v1/facilities/GFID/draws", None, "analyst", 200),
+        ("GET", "/v1/facilities/GFID/draws/DRAWID", None, "analyst", 200),
+        ("GET", "/v1/assignments", None, "field", 200),
     ]
 
 
@@ -61,9 +73,23 @@ def test_route_matrix(client, keys, role):
     delivery = client.get(f"/v1/webhooks/{hook}/deliveries", headers=hdr).json()["items"][0]["id"]
     spare_hook = client.post("/v1/webhooks", json={"url": "http://127.0.0.1:9/x",
                                                    "kinds": ["stale"]}, headers=hdr).json()["id"]
+    gfid = new_facility(client, keys)     # frames and draws need an open cycle
+    frame_id = client.post(f"/v1/facilities/{gfid}/frames",
+                           json={**FRAME, "units": ["U-1", "U-2"]}, headers=hdr).json()["frame_id"]
+    draw_id = client.post(f"/v1/facilities/{gfid}/draws", json={"frame_id": frame_id, "size": 1,
+                                                              "seed": "7 7"},
+                          headers=hdr).json()["draw_id"]
     counter = 0
     for method, path, body, minimum, success in routes(fid, f"{fid}-m0", aid, hook, delivery):
-        path = path.replace("NEWHOOK", str(spare_hook))
+        path = path.replace("NEWHOOK", str(spare_hook)).replace("GFID", gfid) \
+            .replace("FRAMEID", str(frame_id)).replace("DRAWID", str(draw_id))
+        content = None
+        if body == "frame":
+            body = {**FRAME, "units": ["U-1", "U-2", "U-3"]}
+        elif body == "draw":
+            body = {"frame_id": frame_id, "size": 1, "seed": f"{counter} 5"}
+        elif body == "csv":
+            body, content = None, b"unit_ref\nU-9\n"
         counter += 1
         if body == "facility":
             body = {"facility_id": f"{fid}-new-{role}", "name": "New", "plan": "scales"}
@@ -72,7 +98,7 @@ def test_route_matrix(client, keys, role):
         if path.endswith("/cycles"):  # needs a stopped cycle first
             client.post(f"/v1/facilities/{fid}/close", json={"reason": "setup"}, headers=hdr)
         path = path.replace("/v1/keys/1/", f"/v1/keys/{spare_id}/")
-        r = client.request(method, path, json=body, headers=keys.header(role))
+        r = client.request(method, path, json=body, content=content, headers=keys.header(role))
         want = expected(role, minimum, success)
         assert r.status_code == want, (method, path, role, r.status_code, r.text)
         if want >= 400:

@@ -13,6 +13,7 @@ from .alerts import AlertsMixin
 from .base import StoreBase
 from .common import KEY_PREFIX, ROLES, hash_key, plan_from_snapshot, plan_of
 from .facilities import FacilitiesMixin
+from .frames import FramesMixin
 from .keys import KeysMixin
 from .outbox import OutboxMixin, SessionMixin
 from .program import ProgramMixin
@@ -22,6 +23,6 @@ __all__ = ["Store", "RecordIn", "IngestOutcome", "hash_key", "plan_of", "plan_fr
            "ROLES", "KEY_PREFIX"]
 
 
-class Store(KeysMixin, FacilitiesMixin, RecordsMixin, AlertsMixin, OutboxMixin, SessionMixin,
-            ProgramMixin, StoreBase):
+class Store(KeysMixin, FacilitiesMixin, RecordsMixin, AlertsMixin, FramesMixin, OutboxMixin,
+            SessionMixin, ProgramMixin, StoreBase):
     """Access to one SQLite file; safe to share between threads (one connection each)."""

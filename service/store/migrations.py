@@ -97,7 +97,34 @@ def _v5(db: sqlite_utils.Database) -> None:
     db.execute("CREATE INDEX idx_facilities_region ON facilities (region)")
 
 
-MIGRATIONS = [_v1, _v2, _v3, _v4, _v5]
+def _v6(db: sqlite_utils.Database) -> None:
+    """Frames of the units a facility passed, RFC 3797 draws from them (one row per drawn
+    unit, with the record that re-checked it), and each record's mark of the drawn unit."""
+    db["frames"].create({"frame_id": int, "facility_id": str, "label": str, "period_start": str,
+                         "period_end": str, "size": int, "sha256": str, "canonical": str,
+                         "duplicates": str, "created_at": str, "created_by": str},
+                        pk="frame_id",
+                        not_null={"facility_id", "label", "period_start", "period_end", "size",
+                                  "sha256", "canonical", "duplicates", "created_at"})
+    db["frames"].create_index(["facility_id"])
+    db["draws"].create({"draw_id": int, "facility_id": str, "cycle": int, "frame_id": int,
+                        "size": int, "seed": str, "key": str, "created_at": str,
+                        "created_by": str}, pk="draw_id",
+                       not_null={"facility_id", "cycle", "frame_id", "size", "seed", "key",
+                                 "created_at"})
+    db["draws"].create_index(["facility_id", "cycle"])
+    db["draw_units"].create({"draw_id": int, "draw_order": int, "frame_position": int,
+                             "unit_ref": str, "facility_id": str, "cycle": int,
+                             "record_seq": int}, pk=("draw_id", "draw_order"),
+                            not_null={"frame_position", "unit_ref", "facility_id", "cycle"})
+    db["draw_units"].create_index(["facility_id", "cycle", "unit_ref"])
+    db["draw_units"].create_index(["record_seq"])
+    db["records"].add_column("draw_id", int)
+    db["records"].add_column("draw_order", int)
+    db["records"].add_column("excluded", str)
+
+
+MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6]
 
 
 def migrate(db: sqlite_utils.Database) -> int:
