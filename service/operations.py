@@ -15,6 +15,7 @@ import orjson
 from pydantic import TypeAdapter, ValidationError
 
 from .clock import format_time, normalize_utc_text, parse_rfc3339, utc_now
+from .draw_rule import exclusion_text
 from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
 from .schemas import FACILITY_ID_PATTERN, PRINTABLE, RFC3339_PATTERN, FacilityCreate, \
@@ -109,7 +110,7 @@ class PlanBook:
         return {"name": name, "p0": plan.p0, "p1": plan.p1, "alpha": plan.alpha,
                 "beta": plan.beta, "max_units": plan.max_units, "cut_llr": plan.cut_llr,
                 "calibrate": spec.calibrate, "upper_llr": plan.upper_llr,
-                "lower_llr": plan.lower_llr}
+                "lower_llr": plan.lower_llr, "require_draw": spec.require_draw}
 
     def public(self, name: str) -> dict:
         spec = self.spec(name)
@@ -155,7 +156,9 @@ def record_public(row: dict) -> dict:
             "evidence": bool(row["counted"]) and not row["void"],
             "llr_after": row.get("llr_after"), "void": bool(row["void"]),
             "voided_at": row["voided_at"], "voided_by": row["voided_by"],
-            "void_reason": row["void_reason"]}
+            "void_reason": row["void_reason"], "draw_id": row.get("draw_id"),
+            "draw_order": row.get("draw_order"),
+            "not_evidence_reason": exclusion_text(row.get("excluded"))}
 
 
 @dataclass

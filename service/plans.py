@@ -8,7 +8,7 @@ from pathlib import Path
 from .stats import check_rates
 
 PLAN_KEYS = {"p0", "p1", "alpha", "beta", "max_units", "cut_llr", "calibrate",
-             "remonitor_after_days", "stale_after_days", "title"}
+             "remonitor_after_days", "stale_after_days", "title", "require_draw"}
 
 
 class ConfigError(ValueError):
@@ -30,6 +30,7 @@ class PlanSpec:
     title: str | None = None
     stale_after_days: float | None = None
     remonitor_after_days: float | None = None
+    require_draw: bool = False      # only records of drawn units are evidence
 
     def design_args(self) -> dict:
         return {"p0": self.p0, "p1": self.p1, "alpha": self.alpha, "beta": self.beta,
@@ -55,6 +56,8 @@ def plan_from_table(name: str, table: dict, source: str = "config") -> PlanSpec:
         raise ConfigError(f"{source}: [plans.{name}]: {exc}") from None
     if not isinstance(spec.calibrate, bool):
         raise ConfigError(f"{source}: [plans.{name}]: calibrate must be true or false")
+    if not isinstance(spec.require_draw, bool):
+        raise ConfigError(f"{source}: [plans.{name}]: require_draw must be true or false")
     return spec
 
 

@@ -148,6 +148,11 @@ class RecordPublic(BaseModel):
     voided_at: str | None
     voided_by: str | None
     void_reason: str | None
+    draw_id: int | None = Field(default=None, description="the draw this record's unit came "
+                                                          "from, if drawn")
+    draw_order: int | None = Field(default=None, description="its place in that draw")
+    not_evidence_reason: str | None = Field(default=None, description="why a kept record is "
+                                                                      "not evidence, if so")
 
 
 class RecordList(BaseModel):
@@ -337,6 +342,8 @@ class CaseFilePublic(BaseModel):
     plan_explained: dict[str, str]
     cycle_state: CyclePublic
     records: list[RecordPublic]
+    draws: dict[str, Any] | None = Field(default=None, description="frames and RFC 3797 draws "
+                                         "of the cycle; whether every evidence record was drawn")
     actions: list[ActionPublic]
     curve: list[dict[str, Any]]
     method: str

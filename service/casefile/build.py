@@ -10,6 +10,7 @@ from ..operations import cycle_public, record_public
 from ..stats import design_plan
 from ..stats.inference import infer
 from ..store import Store, plan_from_snapshot
+from .draws import draws_section
 
 NOT_CHECKED = [
     "whether the audited units were in fact selected at random (the service records what "
@@ -102,6 +103,7 @@ def build_casefile(store: Store, facility_id: str, cycle: int | None = None,
         "plan_explained": explain_plan(snap),
         "cycle_state": cycle_public(cyc),
         "records": [record_public(r) for r in rows],
+        "draws": draws_section(store, facility_id, number, rows, snap),
         "actions": actions,
         "curve": figures["curve"],
         "method": METHOD,

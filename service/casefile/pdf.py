@@ -129,6 +129,8 @@ def render_pdf(cf: dict) -> bytes:
         rows.append(cells)
     story.append(_grid(rows, [12 * mm, 30 * mm, 34 * mm, 11 * mm, 9 * mm, 26 * mm, 16 * mm,
                               40 * mm]))
+    from .draws_pdf import draws_story
+    story += draws_story(cf.get("draws"))
     story += [_p("Action log of the cycle", H2)]
     if cf["actions"]:
         arows = [["when (UTC)", "who", "action", "detail"]]

@@ -137,8 +137,10 @@ def facility(request: Request, facility_id: str, cycle: int | None = None,
     chart = path_chart(points, cyc["lower_llr"], cyc["upper_llr"], decided, voids,
                        cyc["plan_snapshot"].get("max_units"))
     alerts = m.alerts(facility_id=facility_id, limit=20)["items"]
+    from .draws import draws_context
     return page(request, "facility.html", user, fac=fac, cyc=cyc, records=records, chart=chart,
-                alerts=alerts, msg=msg, kind=kind, is_current=number == fac["cycle"])
+                alerts=alerts, msg=msg, kind=kind, is_current=number == fac["cycle"],
+                draws_ctx=draws_context(m, facility_id, number))
 
 
 @router.post("/facilities/{facility_id}/records/{record_id:path}/void")
