@@ -75,7 +75,7 @@ def _load(conn) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
                        ).fetchone()
     top_fac = conn.execute("SELECT COALESCE(MAX(rowid), 0) FROM facilities").fetchone()[0]
     join = ("FROM records r JOIN facilities f ON f.facility_id = r.facility_id "
-            "WHERE r.void = 0 ORDER BY r.seq")
+            "WHERE r.void = 0 AND r.excluded IS NULL ORDER BY r.seq")
     if top[0] < 2 ** _N_BITS and top[1] < 2 ** _CYC_BITS and top_fac < 2 ** _FAC_BITS:
         shift_g = 2 * _N_BITS + 1
         packed = np.array(conn.execute(
@@ -121,7 +121,7 @@ def verify_database(store: Store) -> VerifyReport:
         if cyc["closed_seq"] is not None:   # closed by hand: receipt numbers matter (rare)
             seq = np.array([r[0] for r in conn.execute(
                 "SELECT seq FROM records WHERE facility_id = ? AND cycle = ? AND void = 0 "
-                "ORDER BY seq", key)], dtype=np.int64)
+                "AND excluded IS NULL ORDER BY seq", key)], dtype=np.int64)
         else:
             seq = np.arange(1, b - a + 1)
         state, replayed = replay_counts(plan, seq, units[a:b], bad[a:b], cyc["closed_seq"])

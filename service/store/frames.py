@@ -12,11 +12,7 @@ import json
 from ..errors import Conflict, Invalid, NotFound
 from ..selection import CanonicalFrame, Draw
 from ..stats import MONITORING
-
-
-def _dicts(cursor) -> list[dict]:
-    names = [c[0] for c in cursor.description]
-    return [dict(zip(names, r)) for r in cursor.fetchall()]
+from .common import where_in
 
 
 _FRAME_COLUMNS = ("frame_id, facility_id, label, period_start, period_end, size, sha256, "
@@ -134,3 +130,69 @@ class FramesMixin:
             "JOIN draw_units u ON u.facility_id = f.facility_id AND u.cycle = c.cycle "
             "WHERE c.status = ? AND u.record_seq IS NULL "
             "ORDER BY u.facility_id, u.draw_id, u.draw_order", (MONITORING,))
+
+
+_REQUIRE_DRAW: dict[str, bool] = {}
+
+
+def requires_draw(plan_json: str) -> bool:
+    """Whether a cycle's plan snapshot requires drawn units (parsed once per distinct text)."""
+    value = _REQUIRE_DRAW.get(plan_json)
+    if value is None:
+        if len(_REQUIRE_DRAW) >= 1024:
+            _REQUIRE_DRAW.clear()
+        value = _REQUIRE_DRAW[plan_json] = bool(json.loads(plan_json).get("require_draw"))
+    return value
+
+
+class DrawMarks:
+    """The drawn units of the open cycles a batch of records touches, for the ingest
+    transaction: which record takes which place (by :func:`service.draw_rule.check_unit`),
+    and the places taken, written back with :meth:`save`.
+
+    One indexed query finds which of the batch's facilities have draws in their current
+    cycle; only those facilities' drawn units are read. A batch with no such facility costs
+    that one query.
+    """
+
+    def __init__(self, conn, items, cycles: dict[str, dict]):
+        self._slots: dict[tuple[str, str], list[list]] = {}
+        self._taken: list[tuple[int, int, int]] = []
+        with_refs = list({it.facility_id for it in items
+                          if it.unit_ref is not None and it.facility_id in cycles})
+        if not with_refs:
+            return
+        drawn = {(fid, cyc) for fid, cyc in where_in(
+            conn, "SELECT DISTINCT facility_id, cycle FROM draws WHERE facility_id IN "
+                  "({marks})", with_refs)}
+        for fid in with_refs:
+            cyc = cycles[fid]
+            if (fid, cyc["cycle"]) not in drawn or cyc["status"] != MONITORING:
+                continue
+            for draw_id, order, ref, record_id in conn.execute(
+                    "SELECT u.draw_id, u.draw_order, u.unit_ref, r.record_id FROM draw_units u "
+                    "LEFT JOIN records r ON r.seq = u.record_seq WHERE u.facility_id = ? AND "
+                    "u.cycle = ? ORDER BY u.draw_id, u.draw_order", (fid, cyc["cycle"])):
+                self._slots.setdefault((fid, ref), []).append([draw_id, order, record_id])
+
+    def check(self, item, cyc: dict):
+        """The rule's answer for one record of an open cycle (see :mod:`service.draw_rule`)."""
+        from ..draw_rule import DrawSlot, UnitCheck, check_unit
+        if cyc["_state"].status != MONITORING:
+            return UnitCheck()       # a post-decision record: kept, never evidence anyway
+        slots = self._slots.get((item.facility_id, item.unit_ref), ()) \
+            if item.unit_ref is not None else ()
+        return check_unit(requires_draw(cyc["plan_json"]), item.unit_ref,
+                          [DrawSlot(*s) for s in slots])
+
+    def take(self, item, check, seq: int) -> None:
+        """Record that ``item`` (stored as ``seq``) took the place ``check`` named."""
+        for slot in self._slots[(item.facility_id, item.unit_ref)]:
+            if slot[0] == check.draw_id and slot[1] == check.order:
+                slot[2] = item.record_id
+        self._taken.append((seq, check.draw_id, check.order))
+
+    def save(self, conn) -> None:
+        if self._taken:
+            conn.executemany("UPDATE draw_units SET record_seq = ? WHERE draw_id = ? AND "
+                             "draw_order = ?", self._taken)

@@ -8,6 +8,7 @@ from ..alerting import decision_alerts, void_alerts
 from ..errors import Conflict, NotFound
 from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
 from .common import plan_of, rows_of, state_of, where_in
+from .frames import DrawMarks
 from .group_commit import Job
 
 
@@ -51,8 +52,8 @@ class IngestOutcome(NamedTuple):
 
 _INSERT_RECORDS = (
     "INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, observed_utc, "
-    "received_at, units, nonconforming, unit_ref, inspector, note, counted, key_label, void) "
-    "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0)")
+    "received_at, units, nonconforming, unit_ref, inspector, note, counted, key_label, void, "
+    "draw_id, draw_order, excluded) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, ?, ?, ?)")
 
 # The sqlite3 module binds a None parameter only after a failed adapter lookup that raises
 # and formats two AttributeErrors (about 0.4 us each; records carry several None fields).
@@ -111,6 +112,7 @@ class RecordsMixin:
         stored = self._stored_content(conn, list({it.record_id for it in items}))
         cycles = self._current_cycles(conn, list({it.facility_id for it in items}))
         seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
+        marks = DrawMarks(conn, items, cycles)              # drawn units of open cycles
         batch: dict[str, tuple[RecordIn, int]] = {}     # ids first seen in this job
         runs: dict[str, tuple[list, list, list, list]] = {}   # facility -> its new records
         inserts, alerts, outcomes = [], [], []
@@ -144,17 +146,31 @@ class RecordsMixin:
                                               f"no facility {it.facility_id!r} is registered",
                                               "facility_id"))
                 continue
+            unit = marks.check(it, cyc)
+            if unit.conflict is not None:       # a drawn unit counts once
+                rejected += 1
+                outcomes.append(IngestOutcome(rid, "conflict", None, it.facility_id,
+                                              unit.conflict, "unit_ref"))
+                continue
             seq += 1
-            run = runs.get(it.facility_id)
-            if run is None:
-                run = runs[it.facility_id] = ([], [], [], [])
-            run[0].append(len(inserts))
-            run[1].append(seq)
-            run[2].append(it.units)
-            run[3].append(it.nonconforming)
+            if unit.draw_id is not None:
+                marks.take(it, unit, seq)
+            if unit.excluded is None:
+                run = runs.get(it.facility_id)
+                if run is None:
+                    run = runs[it.facility_id] = ([], [], [], [])
+                run[0].append(len(inserts))
+                run[1].append(seq)
+                run[2].append(it.units)
+                run[3].append(it.nonconforming)
+            else:       # kept and shown, but not evidence under the plan's draw rule
+                cyc["record_count"] += 1
+                cyc["last_record_at"] = now
+                runs.setdefault(it.facility_id, ([], [], [], []))
             inserts.append((seq, rid, it.facility_id, cyc["cycle"], it.observed_at,
                             it.observed_utc, now, it.units, it.nonconforming, it.unit_ref,
-                            it.inspector, it.note, 1, key_label))
+                            it.inspector, it.note, int(unit.excluded is None), key_label,
+                            unit.draw_id, unit.order, unit.excluded))
             batch[rid] = (it, seq)
             outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id))
         # each facility's new records in receipt order, as one run through the pure update
@@ -172,6 +188,7 @@ class RecordsMixin:
             cyc["record_count"] += len(positions)
             cyc["last_record_at"] = now
         conn.executemany(_INSERT_RECORDS, inserts)
+        marks.save(conn)
         for fid in runs:
             self._write_state(conn, cycles[fid], cycles[fid]["_state"])
         for _, cyc, state, rid in sorted(decided, key=lambda x: x[0]):   # alerts in record order
@@ -253,6 +270,9 @@ class RecordsMixin:
                                f"{rec['voided_by']}")
             conn.execute("UPDATE records SET void = 1, voided_at = ?, voided_by = ?, "
                          "void_reason = ? WHERE seq = ?", (now, actor[0], reason, rec["seq"]))
+            # a drawn unit whose re-check is voided is again to be re-checked
+            conn.execute("UPDATE draw_units SET record_seq = NULL WHERE record_seq = ?",
+                         (rec["seq"],))
             fid, number = rec["facility_id"], rec["cycle"]
             cyc = rows_of(conn.execute("SELECT * FROM cycles WHERE facility_id = ? AND cycle = ?",
                                      (fid, number)))[0]
@@ -260,9 +280,10 @@ class RecordsMixin:
                                    (fid,)).fetchone()[0]
             cyc["_plan"] = plan_of(cyc["plan_json"])
             before = state_of(cyc)
-            live = rows_of(conn.execute("SELECT seq, units, nonconforming, received_at FROM records "
-                                      "WHERE facility_id = ? AND cycle = ? AND void = 0 ORDER BY "
-                                      "seq", (fid, number)))
+            standing = rows_of(conn.execute(
+                "SELECT seq, units, nonconforming, received_at, excluded FROM records WHERE "
+                "facility_id = ? AND cycle = ? AND void = 0 ORDER BY seq", (fid, number)))
+            live = [r for r in standing if r["excluded"] is None]   # excluded: never evidence
             evidence = [Evidence(r["seq"], r["units"], r["nonconforming"], r["received_at"])
                         for r in live]
             state, counted = replay(cyc["_plan"], evidence, stop_seq=cyc["closed_seq"])
@@ -277,7 +298,7 @@ class RecordsMixin:
                          f"undecided after a void, and cycle {current} is already open"}
             conn.executemany("UPDATE records SET counted = ? WHERE seq = ?",
                              [(int(c), r["seq"]) for c, r in zip(counted, live)])
-            cyc["record_count"] = len(live)
+            cyc["record_count"] = len(standing)
             self._write_state(conn, cyc, state, extra)
             alerts = void_alerts(fid, number, cyc["plan_name"], cyc["_plan"], before, state,
                                  record_id, reason)
