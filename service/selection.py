@@ -229,17 +229,24 @@ def parse_frame_text(text: str) -> tuple[list[str], list[int]]:
     import io
 
     text = text.removeprefix("\ufeff")
-    lines = text.splitlines()
-    first = next(csv.reader([lines[0]]), []) if lines else []
+    lines = text.split("\n", 1)
+    try:
+        first = next(csv.reader([lines[0].removesuffix("\r")]), [])
+    except csv.Error:
+        first = []
     if "unit_ref" in [c.strip() for c in first]:
         reader = csv.DictReader(io.StringIO(text, newline=""))
-        reader.fieldnames = [c.strip() for c in reader.fieldnames or []]
         refs, where = [], []
-        for row in reader:
-            value = row.get("unit_ref") or ""
-            if value.strip():
-                refs.append(value)
-                where.append(reader.line_num)
+        try:
+            reader.fieldnames = [c.strip() for c in reader.fieldnames or []]
+            for row in reader:
+                value = row.get("unit_ref") or ""
+                if value.strip():
+                    refs.append(value)
+                    where.append(reader.line_num)
+        except csv.Error as exc:
+            raise SelectionInputError("file", f"not readable as CSV near line "
+                                              f"{reader.line_num}: {exc}") from None
         return refs, where
     refs, where = [], []
     for n, line in enumerate(text.split("\n"), start=1):

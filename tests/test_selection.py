@@ -108,6 +108,9 @@ def test_frame_files_plain_and_csv():
     with pytest.raises(SelectionInputError) as e:
         frame_from_text("A\nB\n\nC\x07\n")
     assert "line 4" in str(e.value) and e.value.field == "file"
+    with pytest.raises(SelectionInputError) as e:    # over the csv module's field limit
+        frame_from_text('unit_ref\nA\n"' + "x" * 200_000 + '"\n')
+    assert e.value.field == "file" and "CSV" in str(e.value)
 
 
 def test_draw_bad_size():

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 
+from ..draw_rule import DrawSlot, UnitCheck, check_unit
 from ..errors import Conflict, Invalid, NotFound
 from ..selection import CanonicalFrame, Draw
 from ..stats import MONITORING
@@ -133,6 +134,7 @@ class FramesMixin:
 
 
 _REQUIRE_DRAW: dict[str, bool] = {}
+_PLAIN = UnitCheck()
 
 
 def requires_draw(plan_json: str) -> bool:
@@ -175,15 +177,15 @@ class DrawMarks:
                     "u.cycle = ? ORDER BY u.draw_id, u.draw_order", (fid, cyc["cycle"])):
                 self._slots.setdefault((fid, ref), []).append([draw_id, order, record_id])
 
-    def check(self, item, cyc: dict):
+    def check(self, item, cyc: dict) -> UnitCheck:
         """The rule's answer for one record of an open cycle (see :mod:`service.draw_rule`)."""
-        from ..draw_rule import DrawSlot, UnitCheck, check_unit
         if cyc["_state"].status != MONITORING:
-            return UnitCheck()       # a post-decision record: kept, never evidence anyway
-        slots = self._slots.get((item.facility_id, item.unit_ref), ()) \
-            if item.unit_ref is not None else ()
+            return _PLAIN            # a post-decision record: kept, never evidence anyway
+        slots = self._slots.get((item.facility_id, item.unit_ref)) if self._slots else None
+        if slots is None and not requires_draw(cyc["plan_json"]):
+            return _PLAIN            # the common case: no draw involved
         return check_unit(requires_draw(cyc["plan_json"]), item.unit_ref,
-                          [DrawSlot(*s) for s in slots])
+                          [DrawSlot(*s) for s in slots or ()])
 
     def take(self, item, check, seq: int) -> None:
         """Record that ``item`` (stored as ``seq``) took the place ``check`` named."""

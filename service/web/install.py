@@ -71,12 +71,12 @@ def install_ui(app: FastAPI) -> None:
     app.include_router(router)
     from .program_pages import router as program_router
     app.include_router(program_router)
+    from .draws import router as draws_router
+    app.include_router(draws_router)
 
     @app.get("/", include_in_schema=False)
     async def _home():
         return RedirectResponse("/ui", status_code=307)
-    from .draws import router as draws_router
-    app.include_router(draws_router)
     app.mount("/ui/static", StaticFiles(directory=str(STATIC)), name="ui-static")
 
     app.add_middleware(SecurityHeaders)
