@@ -445,6 +445,42 @@ def _add_program(sub) -> None:
     vs.set_defaults(func=run)
 
 
+def _add_frames(sub) -> None:
+    p = sub.add_parser("frames", help="frames: the units a facility passed in a period")
+    acts = p.add_subparsers(dest="frames_command", parser_class=_Parser, metavar="ACTION")
+    acts.required = True
+    imp = acts.add_parser("import", help="register a frame from a file: one unit ref per line, "
+                                         "or CSV with a unit_ref column")
+    imp.add_argument("file")
+    imp.add_argument("--facility", required=True, help="facility id")
+    imp.add_argument("--label", required=True, help="e.g. 'week 2026-W48'")
+    imp.add_argument("--period-start", required=True, help="first day, YYYY-MM-DD")
+    imp.add_argument("--period-end", required=True, help="last day, YYYY-MM-DD")
+    _add_service_options(imp)
+
+    def run(a, parser):
+        from .commands.frames import FrameImportError, import_frame
+        from .errors import ServiceError
+        from .operations import Monitor, PlanBook
+        from .store import Store
+        settings = _settings(a)
+        if not settings.db_path.exists():
+            parser.error(f"argument --db: {settings.db_path} does not exist")
+        store = Store(settings.db_path)
+        store.migrate()
+        monitor = Monitor(store=store, plans=PlanBook(settings.plans))
+        try:
+            return import_frame(monitor, a.file, a.facility, a.label, a.period_start,
+                                a.period_end)
+        except FrameImportError as exc:
+            name = "file" if exc.option == "file" else f"--{exc.option}"
+            parser.error(f"argument {name}: {exc}")
+        except ServiceError as exc:      # e.g. an unknown facility
+            parser.error(f"argument --facility: {exc.detail}")
+
+    imp.set_defaults(func=run)
+
+
 def build_parser() -> _Parser:
     parser = _Parser(prog="seqaudit", description="Sequential audit monitor (SPRT).")
     sub = parser.add_subparsers(dest="command", parser_class=_Parser, metavar="COMMAND")
@@ -462,6 +498,7 @@ def build_parser() -> _Parser:
     _add_export(sub)
     _add_program(sub)
     _add_draw(sub)
+    _add_frames(sub)
     return parser
 
 

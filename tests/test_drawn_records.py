@@ -1,11 +1,13 @@
 """Records of drawn units: marks, plans that require draws, one re-check per drawn unit,
 assignments, voids, replay and the case file."""
+import io
 from dataclasses import replace
 
 import pytest
 from fastapi.testclient import TestClient
 from hypothesis import given, settings as hsettings
 from hypothesis import strategies as st
+from pypdf import PdfReader
 
 from service.api import create_app
 from service.draw_rule import NOT_DRAWN, DrawSlot, check_unit
@@ -138,6 +140,10 @@ def test_assignments_follow_records_voids_and_decisions(drawn_client):
     assert any(cmd.startswith("seqaudit draw verify") for cmd in draw["commands"])
     pdf = c.get("/v1/facilities/C-1/cycles/1/casefile.pdf", headers=c.keys.header("analyst"))
     assert pdf.status_code == 200
+    text = " ".join(page.extract_text() for page in PdfReader(io.BytesIO(pdf.content)).pages)
+    flat = " ".join(text.split())
+    assert "How the re-checked units were chosen" in flat
+    assert d["frame_sha256"] in flat.replace(" ", "") and "seqaudit draw verify" in flat
 
 
 def test_case_file_says_when_evidence_did_not_come_from_a_draw(drawn_client):
