@@ -40,8 +40,7 @@ def routes(fid, rid, aid, hook, delivery):
         ("POST", "/v1/keys", {"role": "field", "label": "tablet 9"}, "admin", 201),
         ("POST", "/v1/keys/1/revoke", None, "admin", 200),
         ("POST", "/v1/facilities/GFID/frames", "frame", "analyst", 201),
-        ("POST", "/v1/facilities/GFID/frames/upload?label=w&period_start=2026-11-02&"
-                 "period_end=2026-11-08", "csv", "analyst", 201),
+        ("POST", "/v1/facilities/GFID/frames/upload", "csv", "analyst", 201),
         ("GET", "/v1/facilities/GFID/frames", None, "analyst", 200),
         ("GET", "/v1/facilities/GFID/frames/FRAMEID", None, "analyst", 200),
         ("GET", "/v1/facilities/GFID/frames/FRAMEID/canonical", None, "analyst", 200),
@@ -90,6 +89,7 @@ def test_route_matrix(client, keys, role):
             body = {"frame_id": frame_id, "size": 1, "seed": f"{counter} 5"}
         elif body == "csv":
             body, content = None, b"unit_ref\nU-9\n"
+            path += "?label=w&period_start=2026-11-02&period_end=2026-11-08"
         counter += 1
         if body == "facility":
             body = {"facility_id": f"{fid}-new-{role}", "name": "New", "plan": "scales"}

@@ -50,8 +50,9 @@ def test_docs_page_loads_everything_from_the_host_under_the_dashboard_policy(cli
 
 
 def _template(path: str, documented: set[str]) -> str | None:
-    """The OpenAPI path template that a concrete path of the role matrix fills in."""
-    for tmpl in documented:
+    """The OpenAPI path template that a concrete path of the role matrix fills in (the most
+    literal one when several match, e.g. .../frames/upload before .../frames/{frame_id})."""
+    for tmpl in sorted(documented, key=lambda t: (t.count("{"), t)):
         if re.fullmatch(re.sub(r"\\{[^}]+\\}", "[^/]+", re.escape(tmpl)), path):
             return tmpl
     return None
