@@ -163,13 +163,33 @@ def visits_csv(answer: dict) -> str:
 def hooks(store) -> dict:
     """The watch-chart and open-draw hooks the store offers, when those features exist.
 
-    A store with ``watch_high_facilities(ids) -> set`` (the watch chart) or
-    ``draw_next_units(facility_id, k) -> list`` (open draws, in draw order) is used;
-    otherwise the visit list works without them.
+    Open draws: a store with ``assignments()`` (drawn units not yet re-checked of open
+    cycles, rows ``{facility_id, draw_id, draw_order, unit_ref}`` in draw order) or with
+    ``draw_next_units(facility_id, k)`` names each visit's units in draw order. The watch
+    chart: a store with ``watch_high_facilities(ids) -> set`` marks facilities whose chart
+    is high. Without them the visit list names facilities and numbers of units only.
     """
     out = {}
     if hasattr(store, "watch_high_facilities"):
         out["watch_high"] = store.watch_high_facilities
     if hasattr(store, "draw_next_units"):
         out["draw_units"] = store.draw_next_units
+    elif hasattr(store, "assignments"):
+        out["draw_units"] = _draw_order_lookup(store)
     return out
+
+
+def _draw_order_lookup(store):
+    """draw_units(facility_id, k) from the pending drawn units, read once when first asked."""
+    pending: dict[str, list[str]] | None = None
+
+    def draw_units(facility_id: str, k: int) -> list[str] | None:
+        nonlocal pending
+        if pending is None:
+            pending = {}
+            for row in store.assignments():
+                pending.setdefault(row["facility_id"], []).append(row["unit_ref"])
+        refs = pending.get(facility_id)
+        return refs[:k] if refs else None
+
+    return draw_units

@@ -172,3 +172,29 @@ def test_program_routes_need_an_analyst(client, keys):
         assert r.status_code == status
         r = client.get("/v1/program/forecast", headers=keys.header(role))
         assert r.status_code == status
+
+
+def test_visits_name_the_units_of_an_open_draw_in_draw_order(app, client, keys, register):
+    # A store that offers pending drawn units (the audit-sampling feature's assignments):
+    # the visit names as many of them as it has units, in draw order; facilities without a
+    # draw get no unit names.
+    from service import program_ops
+
+    store = app.state.monitor.store
+
+    class WithDraws:
+        def __getattr__(self, name):
+            return getattr(store, name)
+
+        def assignments(self):
+            return [{"facility_id": "N-1", "draw_id": 7, "draw_order": i, "unit_ref": f"P-{i}"}
+                    for i in range(1, 40)]
+
+    out = program_ops.visits(WithDraws(), app.state.monitor.plans, "2026-12-01T08:00:00.000000Z",
+                             25, **program_ops.hooks(WithDraws()))
+    by_id = {v["facility_id"]: v for v in out["visits"]}
+    n1 = by_id["N-1"]
+    assert n1["unit_refs"] == [f"P-{i}" for i in range(1, n1["units"] + 1)]
+    assert all(v["unit_refs"] is None for f, v in by_id.items() if f != "N-1")
+    assert "unit_refs" not in program_ops.visits(
+        store, None, "2026-12-01T08:00:00.000000Z", 25)["visits"][0]
