@@ -198,3 +198,21 @@ def test_visits_name_the_units_of_an_open_draw_in_draw_order(app, client, keys, 
     assert all(v["unit_refs"] is None for f, v in by_id.items() if f != "N-1")
     assert "unit_refs" not in program_ops.visits(
         store, None, "2026-12-01T08:00:00.000000Z", 25)["visits"][0]
+
+
+def test_visits_take_units_from_an_open_draw_in_draw_order(client, keys, register):
+    # With the audit-sampling feature: a frame and a draw for N-1; the visit names the first
+    # drawn units (GET /v1/facilities/{id}/draws gives the draw order), others none.
+    from .test_api_draws import SEED, add_frame
+
+    frame = add_frame(client, keys, "N-1").json()
+    d = client.post("/v1/facilities/N-1/draws", json={"frame_id": frame["frame_id"],
+                                                      "size": 12, "seed": SEED},
+                    headers=keys.header("analyst")).json()
+    drawn = [u["unit_ref"] for u in sorted(d["units"], key=lambda u: u["order"])]
+    body = client.get("/v1/program/visits", params={"budget": 25},
+                      headers=keys.header("analyst")).json()
+    by_id = {v["facility_id"]: v for v in body["visits"]}
+    n1 = by_id["N-1"]
+    assert n1["unit_refs"] == drawn[:n1["units"]]
+    assert all(v["unit_refs"] is None for f, v in by_id.items() if f != "N-1")
