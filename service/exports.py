@@ -90,7 +90,8 @@ def filename(kind: str, facility_id: str | None = None, cycle: int | None = None
     """A safe download name, e.g. ``records-SA-301-cycle2.csv``."""
     parts = [kind]
     if facility_id:
-        parts.append("".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in facility_id))
+        parts.append("".join(ch if (ch.isascii() and ch.isalnum()) or ch in "-_." else "_"
+                             for ch in facility_id))
     if cycle:
         parts.append(f"cycle{cycle}")
     return "-".join(parts) + ".csv"
