@@ -52,6 +52,8 @@ def _add_plan(sub) -> None:
                    help="facilities in the register: design for alpha = F / K per facility")
     p.add_argument("--register-false-flags", type=_rate, default=None, metavar="F",
                    help="expected false flags allowed over the register (with --register-size)")
+    from .commands.watch import add_watch_options
+    add_watch_options(p)
     p.set_defaults(func=_cmd_plan)
 
 
@@ -89,6 +91,8 @@ def _cmd_plan(args, parser) -> int:
         parser.error(f"argument --{exc.argument.replace('_', '-')}: {exc}")
     except ValueError as exc:  # e.g. a cap too small for calibration to meet the risks
         parser.error(str(exc))
+    from .commands.watch import watch_of_args
+    watch = watch_of_args(args, parser)
     if args.plot:
         from .charts import save_plan_chart  # matplotlib only when a chart is asked for
         try:
@@ -99,6 +103,7 @@ def _cmd_plan(args, parser) -> int:
         out = result.to_dict()
         if register is not None:
             out["register"] = register
+        out["watch"] = None if watch is None else watch.to_dict()
         json.dump(out, sys.stdout, indent=2)
         sys.stdout.write("\n")
     else:
@@ -106,6 +111,9 @@ def _cmd_plan(args, parser) -> int:
             from .program import register_lines
             sys.stdout.write("\n".join(register_lines(register)) + "\n\n")
         sys.stdout.write(render(result))
+        if watch is not None:
+            from .watching import report_lines
+            sys.stdout.write("\n".join(report_lines(watch)) + "\n")
         if args.plot:
             sys.stdout.write(f"\nChart written to {args.plot}\n")
     return 0
@@ -125,6 +133,9 @@ def _cmd_plans(args, parser) -> int:
         result = design(**spec.design_args())
         if args.json:
             out[name] = result.to_dict()
+            if spec.watch is not None:
+                from .watching import design_for
+                out[name]["watch"] = design_for(spec.p0, spec.p1, spec.watch).to_dict()
         else:
             sys.stdout.write(render(result, title=f"Plan '{name}'" +
                                     (f": {spec.title}" if spec.title else "")))

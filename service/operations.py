@@ -20,6 +20,7 @@ from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
 from .schemas import FACILITY_ID_PATTERN, PRINTABLE, RFC3339_PATTERN, FacilityCreate, \
     RecordBatchCreate, RecordCreate
+from .watching import design_for
 from .stats import SprtPlan, design
 from .stats.calibrate import calibrate
 from .store import RecordIn, Store
@@ -82,6 +83,7 @@ class PlanBook:
         self._lock = threading.Lock()
         self._plans: dict[str, SprtPlan] = {}
         self._designs: dict[str, Any] = {}
+        self._watches: dict[str, Any] = {}
 
     def spec(self, name: str) -> PlanSpec:
         if name not in self.specs:
@@ -104,6 +106,16 @@ class PlanBook:
                 self._designs[name] = design(**spec.design_args())
             return self._designs[name]
 
+    def watch(self, name: str):
+        """The plan's watch chart (``WatchDesign``) or None when the plan has no watch."""
+        spec = self.spec(name)
+        if spec.watch is None:
+            return None
+        with self._lock:
+            if name not in self._watches:
+                self._watches[name] = design_for(spec.p0, spec.p1, spec.watch)
+            return self._watches[name]
+
     def snapshot(self, name: str) -> dict:
         """What a new cycle stores about its plan, so editing the config never changes it."""
         spec, plan = self.spec(name), self.plan(name)
@@ -119,7 +131,8 @@ class PlanBook:
                 "alpha": spec.alpha, "beta": spec.beta, "max_units": spec.max_units,
                 "cut_llr": spec.cut_llr, "calibrate": spec.calibrate,
                 "boundaries": d["boundaries"], "exact": d["exact"], "wald": d["wald"],
-                "fixed_sample": d["fixed_sample"]}
+                "fixed_sample": d["fixed_sample"],
+                "watch": None if spec.watch is None else self.watch(name).to_dict()}
 
 
 def cycle_public(row: dict) -> dict:

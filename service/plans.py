@@ -2,13 +2,14 @@
 from __future__ import annotations
 
 import tomllib
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from pathlib import Path
 
 from .stats import check_rates
+from .watching import WatchSpec, design_for, watch_from_table
 
 PLAN_KEYS = {"p0", "p1", "alpha", "beta", "max_units", "cut_llr", "calibrate",
-             "remonitor_after_days", "stale_after_days", "title", "require_draw"}
+             "remonitor_after_days", "stale_after_days", "title", "require_draw", "watch"}
 
 
 class ConfigError(ValueError):
@@ -31,6 +32,7 @@ class PlanSpec:
     stale_after_days: float | None = None
     remonitor_after_days: float | None = None
     require_draw: bool = False      # only records of drawn units are evidence
+    watch: WatchSpec | None = None      # [plans.NAME.watch]: chart after a clear
 
     def design_args(self) -> dict:
         return {"p0": self.p0, "p1": self.p1, "alpha": self.alpha, "beta": self.beta,
@@ -49,11 +51,20 @@ def plan_from_table(name: str, table: dict, source: str = "config") -> PlanSpec:
     missing = {"p0", "p1", "alpha", "beta"} - set(table)
     if missing:
         raise ConfigError(f"{source}: [plans.{name}] lacks {', '.join(sorted(missing))}")
+    table = dict(table)
+    watch = table.pop("watch", None)
     spec = PlanSpec(name=name, **table)
     try:
         check_rates(spec.p0, spec.p1, spec.alpha, spec.beta, spec.max_units, spec.cut_llr)
     except ValueError as exc:
         raise ConfigError(f"{source}: [plans.{name}]: {exc}") from None
+    if watch is not None:
+        try:
+            spec = replace(spec, watch=watch_from_table(watch, f"{source}: [plans.{name}]"))
+            design_for(spec.p0, spec.p1, spec.watch)   # refuse a chart that cannot be built
+        except ValueError as exc:
+            raise ConfigError(str(exc) if str(exc).startswith(source) else
+                              f"{source}: [plans.{name}.watch]: {exc}") from None
     if not isinstance(spec.calibrate, bool):
         raise ConfigError(f"{source}: [plans.{name}]: calibrate must be true or false")
     if not isinstance(spec.require_draw, bool):

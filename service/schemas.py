@@ -251,6 +251,7 @@ class PlanPublic(BaseModel):
     exact: dict[str, Any]
     wald: dict[str, float]
     fixed_sample: dict[str, Any]
+    watch: dict[str, Any] | None = None
 
 
 class WebhookCreate(_Strict):

@@ -235,10 +235,12 @@ def ack(request: Request, alert_id: int, note: str = Form(""), csrf: str = Form(
 def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str = "0.05",
               beta: str = "0.10", max_units: str = "", calibrate: str = "",
               register_size: str = "", register_false_flags: str = "",
+              watch_arl0: str = "", watch_p1: str = "",
               user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
     form = {"p0": p0, "p1": p1, "alpha": alpha, "beta": beta, "max_units": max_units,
             "calibrate": bool(calibrate), "register_size": register_size,
-            "register_false_flags": register_false_flags}
+            "register_false_flags": register_false_flags, "watch_arl0": watch_arl0,
+            "watch_p1": watch_p1}
     result, error, charts, register = None, None, None, None
     if "p0" in request.query_params:
         from ..stats import design
@@ -267,6 +269,9 @@ def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str =
                     error = f"{exc.argument}: {exc}"
                 except ValueError as exc:
                     error = str(exc)
+        if result is not None:
+            from .watch_form import watch_figures
+            result["watch"], error = watch_figures(values, watch_arl0, watch_p1)
         if result is not None:
             p = result["plan"]
             charts = {
