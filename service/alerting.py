@@ -56,3 +56,31 @@ def void_alerts(facility_id: str, cycle: int, plan_name: str, plan: SprtPlan,
     if after.status in DECIDED and after.status != before.status:
         out += decision_alerts(facility_id, cycle, plan_name, plan, after, record_id)
     return out
+
+
+def watch_signal_alert(facility_id: str, cycle: int, plan_name: str, snapshot: dict,
+                       value: int, units: int, nonconforming: int,
+                       record_id: str) -> AlertDraft:
+    """The alert of a watch chart that reached its limit after a clear
+    (:mod:`service.watching`); the next cycle opens at once."""
+    w = snapshot["watch"]
+    detail = {"record_id": record_id, "plan": plan_name, "chart_value": value,
+              "limit": w["t"], "weight": w["m"], "units_watched": units,
+              "nonconforming_watched": nonconforming, "p0": snapshot["p0"],
+              "p1_watch": w["p1"], "arl_p0": w.get("arl_p0"), "new_cycle": cycle + 1}
+    return AlertDraft("watch_signal", facility_id, cycle, detail)
+
+
+# -- triage: which alerts need someone's review ------------------------------------------------
+#: Alerts that ask for a judgement: a flag, a decision revised by a void, a signal of the
+#: watch chart, a stale cycle (no records for too long), a webhook that was not delivered.
+NEEDS_REVIEW = frozenset({"flagged", "decision_revised", "watch_signal", "stale",
+                          "delivery_failed"})
+#: Alerts that only inform: listed, filterable and delivered, but not in the open review
+#: queue unless asked for.
+INFORMATIONAL = frozenset({"cleared", "cap_reached"})
+
+
+def needs_review(kind: str) -> bool:
+    """True for the kinds of alert that ask for a review; an unknown kind errs towards review."""
+    return kind not in INFORMATIONAL

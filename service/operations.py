@@ -122,7 +122,15 @@ class PlanBook:
         return {"name": name, "p0": plan.p0, "p1": plan.p1, "alpha": plan.alpha,
                 "beta": plan.beta, "max_units": plan.max_units, "cut_llr": plan.cut_llr,
                 "calibrate": spec.calibrate, "upper_llr": plan.upper_llr,
-                "lower_llr": plan.lower_llr, "require_draw": spec.require_draw}
+                "lower_llr": plan.lower_llr, "require_draw": spec.require_draw,
+                **self._watch_snapshot(name)}
+
+    def _watch_snapshot(self, name: str) -> dict:
+        w = self.watch(name)
+        if w is None:
+            return {}
+        return {"watch": {"m": w.m, "t": w.t, "p1": w.p1, "arl0": w.arl0, "arl_p0": w.arl_p0,
+                          "arl_p1": w.arl_p1}}
 
     def public(self, name: str) -> dict:
         spec = self.spec(name)
@@ -144,17 +152,40 @@ def cycle_public(row: dict) -> dict:
             "decided_after_units": row["decided_after_units"],
             "decided_at_cap": bool(row["at_cap"]), "closed_at": row["closed_at"],
             "closed_reason": row["closed_reason"], "last_record_at": row["last_record_at"],
-            "records": row["record_count"], "plan_snapshot": snap}
+            "records": row["record_count"], "plan_snapshot": snap,
+            "watch": watch_public(row, snap)}
+
+
+def watch_public(row: dict, snap: dict) -> dict | None:
+    """The watch chart of a cleared cycle (None when it has none)."""
+    if row.get("watch_state") is None:
+        return None
+    w = snap["watch"]
+    return {"state": row["watch_state"], "value": row["watch_value"], "m": w["m"], "t": w["t"],
+            "h": w["t"] / w["m"], "p1": w["p1"], "arl_p0": w.get("arl_p0"),
+            "arl_p1": w.get("arl_p1"),
+            "units": row["watch_units"], "nonconforming": row["watch_nonconforming"],
+            "peak": row["watch_peak"], "signal_at": row["watch_signal_at"]}
+
+
+def shown_status(row: dict) -> str:
+    """A cleared facility whose chart is running is shown as ``watching``."""
+    if row["status"] == "cleared" and row.get("watch_state") == "watching":
+        return "watching"
+    return row["status"]
 
 
 def facility_public(row: dict, cycles: list[dict] | None = None) -> dict:
     snap = json.loads(row["plan_json"])
     out = {"facility_id": row["facility_id"], "name": row["name"], "plan": row["plan"],
-           "registered_at": row["created_at"], "status": row["status"], "cycle": row["cycle"],
+           "registered_at": row["created_at"], "status": shown_status(row),
+           "decision": row["status"] if row["status"] in ("flagged", "cleared") else None,
+           "cycle": row["cycle"],
            "units": row["units"], "nonconforming": row["nonconforming"], "llr": row["llr"],
            "upper_llr": snap["upper_llr"], "lower_llr": snap["lower_llr"],
            "decided_at": row["decided_at"], "decided_after_units": row["decided_after_units"],
-           "last_record_at": row["last_record_at"], "region": row.get("region")}
+           "last_record_at": row["last_record_at"], "region": row.get("region"),
+           "watch": watch_public(row, snap)}
     if cycles is not None:
         out["cycles"] = [cycle_public(c) for c in cycles]
     return out

@@ -9,9 +9,11 @@ from pydantic import BaseModel, ConfigDict, Field, StrictInt, StrictStr, field_v
 
 
 Status = Literal["monitoring", "flagged", "cleared", "closed"]
+FacilityStatus = Literal["monitoring", "flagged", "cleared", "watching", "closed"]
 AlertKind = Literal["flagged", "cleared", "decision_revised", "cap_reached", "stale",
-                    "delivery_failed"]
-WebhookKind = Literal["flagged", "cleared", "decision_revised", "cap_reached", "stale"]
+                    "delivery_failed", "watch_signal"]
+WebhookKind = Literal["flagged", "cleared", "decision_revised", "cap_reached", "stale",
+                      "watch_signal"]
 Role = Literal["field", "analyst", "admin"]
 
 
@@ -102,6 +104,7 @@ class CyclePublic(BaseModel):
     last_record_at: str | None
     records: int
     plan_snapshot: dict[str, Any]
+    watch: dict[str, Any] | None = None
 
 
 class FacilityPublic(BaseModel):
@@ -109,7 +112,8 @@ class FacilityPublic(BaseModel):
     name: str
     plan: str
     registered_at: str
-    status: Status
+    status: FacilityStatus
+    decision: Literal["flagged", "cleared"] | None = None
     cycle: int
     units: int
     nonconforming: int
@@ -120,6 +124,7 @@ class FacilityPublic(BaseModel):
     decided_after_units: int | None
     last_record_at: str | None
     region: str | None = None
+    watch: dict[str, Any] | None = None
     cycles: list[CyclePublic] | None = None
 
 

@@ -49,7 +49,11 @@ def test_clear_at_thirty_sixth_conforming_unit(client, keys):
     n, status = hand_decision_unit([0] * 60)
     assert (n, status) == (36, "cleared")
     statuses = post_sequence(client, keys, fid, [0] * 36)
-    assert statuses[34] == "monitoring" and statuses[35] == "cleared"
+    # config/seqaudit.toml gives the dispensers plan a watch chart: a cleared facility is
+    # shown as watching, its cycle's decision is cleared
+    assert statuses[34] == "monitoring" and statuses[35] == "watching"
+    state = client.get(f"/v1/facilities/{fid}", headers=keys.header("analyst")).json()
+    assert state["decision"] == "cleared" and state["cycles"][0]["status"] == "cleared"
 
 
 def test_mixed_sequence_flips_where_the_running_sum_says(client, keys):

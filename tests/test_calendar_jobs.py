@@ -67,7 +67,7 @@ def test_remonitor_opens_one_new_cycle_after_the_plans_delay(env):
             client.post("/v1/records", json=record(plan_fid, f"{plan_fid}-{i}", 0),
                         headers=keys.header("field"))
     assert client.get(f"/v1/facilities/{fid}", headers=keys.header("analyst")).json()[
-        "status"] == "cleared"
+        "decision"] == "cleared"
     plans = dict(m.plans.specs)
     plans["dispensers"] = replace(plans["dispensers"], remonitor_after_days=None)
     m.plans.specs = plans

@@ -3,8 +3,8 @@ from typing import Literal
 from fastapi import APIRouter, Depends, Query, Request, Response
 
 from ..operations import Monitor
-from ..schemas import FacilityCreate, FacilityPage, FacilityPublic, ReasonCreate, RecordList, \
-    Status
+from ..schemas import FacilityCreate, FacilityPage, FacilityPublic, FacilityStatus, \
+    ReasonCreate, RecordList
 from .csv_format import CSV_RESPONSE, Format, FormatQuery, csv_response, wants_csv
 from .deps import CycleNo, Offset, admin, analyst, monitor
 
@@ -24,7 +24,8 @@ def register(body: FacilityCreate, response: Response, actor=Depends(admin),
 
 @router.get("", response_model=FacilityPage, summary="List facilities (analyst)",
             responses=CSV_RESPONSE)
-def list_facilities(request: Request, status: Status | None = None, plan: str | None = None,
+def list_facilities(request: Request, status: FacilityStatus | None = None,
+                    plan: str | None = None,
                     q: str | None = Query(None, max_length=100, description="id or name contains"),
                     sort: Sort = "facility_id", descending: bool = False,
                     limit: int = Query(100, ge=1, le=1000), offset: Offset = 0,

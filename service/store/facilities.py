@@ -77,7 +77,11 @@ class FacilitiesMixin:
         if region is not None:
             where.append("f.region = ?")
             params.append(region)
-        if status is not None:
+        if status == "watching":
+            where.append("c.status = 'cleared' AND c.watch_state = 'watching'")
+        elif status == "cleared":
+            where.append("c.status = 'cleared' AND c.watch_state IS NOT 'watching'")
+        elif status is not None:
             where.append("c.status = ?")
             params.append(status)
         if plan is not None:
@@ -114,9 +118,10 @@ class FacilitiesMixin:
         return rows[0]
 
     def status_counts(self) -> dict[str, int]:
-        rows = self.read("SELECT c.status, COUNT(*) AS n FROM facilities f JOIN cycles c ON "
-                         "c.facility_id = f.facility_id AND c.cycle = f.current_cycle "
-                         "GROUP BY c.status")
+        rows = self.read("SELECT CASE WHEN c.status = 'cleared' AND c.watch_state = "
+                         "'watching' THEN 'watching' ELSE c.status END AS status, COUNT(*) AS n "
+                         "FROM facilities f JOIN cycles c ON c.facility_id = f.facility_id AND "
+                         "c.cycle = f.current_cycle GROUP BY 1")
         return {r["status"]: r["n"] for r in rows}
 
     def open_cycle(self, facility_id: str, snapshot: dict, now: str, actor) -> int:

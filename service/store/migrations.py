@@ -124,7 +124,17 @@ def _v6(db: sqlite_utils.Database) -> None:
     db["records"].add_column("excluded", str)
 
 
-MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6]
+def _v7(db: sqlite_utils.Database) -> None:
+    """The watch chart of a cleared cycle (state 'watching' or 'signalled', S, units and
+    nonconforming units charted, the peak, and the record and time of a signal)."""
+    for column, kind in (("watch_state", "TEXT"), ("watch_value", "INTEGER"),
+                         ("watch_units", "INTEGER"), ("watch_nonconforming", "INTEGER"),
+                         ("watch_peak", "INTEGER"), ("watch_signal_seq", "INTEGER"),
+                         ("watch_signal_at", "TEXT")):
+        db.execute(f"ALTER TABLE cycles ADD COLUMN {column} {kind}")
+
+
+MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7]
 
 
 def migrate(db: sqlite_utils.Database) -> int:

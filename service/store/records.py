@@ -174,26 +174,53 @@ class RecordsMixin:
             batch[rid] = (it, seq)
             outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id))
         # each facility's new records in receipt order, as one run through the pure update
-        decided = []
+        decided, touched, signals = [], [], []
         for fid, (positions, seqs, units, bad) in runs.items():
             cyc = cycles[fid]
-            state, decision, counted = apply_run(cyc["_plan"], cyc["_state"], seqs, units, bad,
-                                                 now)
-            for p in positions[counted:]:      # kept, but the cycle had stopped: not evidence
-                row = inserts[p]
-                inserts[p] = row[:12] + (0,) + row[13:]
-            if decision is not None:
-                decided.append((seqs[counted - 1], cyc, state, inserts[positions[counted - 1]][1]))
-            cyc["_state"] = state
-            cyc["record_count"] += len(positions)
-            cyc["last_record_at"] = now
+            touched.append(cyc)
+            while True:
+                state, decision, counted = apply_run(cyc["_plan"], cyc["_state"], seqs, units,
+                                                     bad, now)
+                for p in positions[counted:]:   # kept, but the cycle had stopped: not evidence
+                    row = inserts[p]
+                    inserts[p] = row[:12] + (0,) + row[13:]
+                cyc["_state"] = state
+                if decision is not None:
+                    decided.append((seqs[counted - 1], cyc, state,
+                                    inserts[positions[counted - 1]][1]))
+                    self._start_watch(cyc)
+                cyc["record_count"] += len(positions)
+                cyc["last_record_at"] = now
+                if cyc.get("watch_state") != "watching" or counted == len(seqs):
+                    break
+                # after a clear, the post-decision records feed the watch chart
+                used, signal = self._feed_watch(cyc, seqs[counted:], units[counted:],
+                                                bad[counted:], [inserts[p][1] for p in
+                                                                positions[counted:]], now)
+                if signal is None:
+                    break
+                signals.append((seqs[counted + used - 1], signal))
+                rest = counted + used           # later records go to the new cycle
+                cyc["record_count"] -= len(positions) - rest
+                cyc = self._open_after_signal(conn, cyc, now)
+                touched.append(cyc)
+                positions, seqs, units, bad = (positions[rest:], seqs[rest:], units[rest:],
+                                               bad[rest:])
+                for p in positions:             # evidence of the new cycle unless it stops
+                    row = inserts[p]
+                    inserts[p] = row[:3] + (cyc["cycle"],) + row[4:12] + (1,) + row[13:]
+                if not positions:
+                    break
         conn.executemany(_INSERT_RECORDS, inserts)
         marks.save(conn)
-        for fid in runs:
-            self._write_state(conn, cycles[fid], cycles[fid]["_state"])
-        for _, cyc, state, rid in sorted(decided, key=lambda x: x[0]):   # alerts in record order
-            alerts += decision_alerts(cyc["facility_id"], cyc["cycle"], cyc["plan_name"],
-                                      cyc["_plan"], state, rid)
+        for cyc in touched:
+            self._write_state(conn, cyc, cyc["_state"])
+            self._write_watch(conn, cyc)
+        ordered = [(seq, decision_alerts(cyc["facility_id"], cyc["cycle"], cyc["plan_name"],
+                                         cyc["_plan"], state, rid))
+                   for seq, cyc, state, rid in decided] + [(seq, [a]) for seq, a in signals]
+        for _, more in sorted(ordered, key=lambda x: x[0]):   # alerts in record order
+            alerts += more
         self._insert_alerts(conn, alerts, now)
         self._bump(conn, "records_accepted", len(inserts))
         self._bump(conn, "records_duplicate", duplicates)
@@ -299,11 +326,14 @@ class RecordsMixin:
             conn.executemany("UPDATE records SET counted = ? WHERE seq = ?",
                              [(int(c), r["seq"]) for c, r in zip(counted, live)])
             cyc["record_count"] = len(standing)
+            watch_alerts = self._rewatch_after_void(conn, cyc, state, live, number == current,
+                                                    now)
             self._write_state(conn, cyc, state, extra)
+            self._write_watch(conn, cyc)
             alerts = void_alerts(fid, number, cyc["plan_name"], cyc["_plan"], before, state,
                                  record_id, reason)
             revised = bool(alerts)
-            alert_ids = self._insert_alerts(conn, alerts, now)
+            alert_ids = self._insert_alerts(conn, alerts + watch_alerts, now)
             self._log(conn, now, actor, "record_voided",
                       {"record_id": record_id, "reason": reason, "decision_revised": revised},
                       facility_id=fid, cycle=number, target=record_id)

@@ -25,7 +25,7 @@ templates.env.globals.update(caution=SIGNAL_NOT_VERDICT, assumptions=ASSUMPTIONS
 router = APIRouter(prefix="/ui", include_in_schema=False)
 
 STATUS_TEXT = {"monitoring": "Monitoring", "flagged": "Flagged", "cleared": "Cleared",
-               "closed": "Closed"}
+               "watching": "Watching (cleared)", "closed": "Closed"}
 templates.env.globals["status_text"] = STATUS_TEXT
 PAGE = 50
 
@@ -137,10 +137,12 @@ def facility(request: Request, facility_id: str, cycle: int | None = None,
     chart = path_chart(points, cyc["lower_llr"], cyc["upper_llr"], decided, voids,
                        cyc["plan_snapshot"].get("max_units"))
     alerts = m.alerts(facility_id=facility_id, limit=20)["items"]
+    from .after_decision import after_decision_context
     from .draws import draws_context
+    extra = after_decision_context(m, facility_id, cyc)
     return page(request, "facility.html", user, fac=fac, cyc=cyc, records=records, chart=chart,
                 alerts=alerts, msg=msg, kind=kind, is_current=number == fac["cycle"],
-                draws_ctx=draws_context(m, facility_id, number))
+                draws_ctx=draws_context(m, facility_id, number), **extra)
 
 
 @router.post("/facilities/{facility_id}/records/{record_id:path}/void")
