@@ -413,6 +413,11 @@ class Monitor:
         return {"items": rows, "total": total, "limit": filters.get("limit", 100),
                 "offset": filters.get("offset", 0)}
 
+    def ack_alerts(self, alert_ids: list[int], note: str | None,
+                   actor: Actor) -> tuple[list[int], list[int]]:
+        """Acknowledge several alerts with one note: (acknowledged, skipped) ids."""
+        return self.store.ack_alerts(alert_ids, note, self.clock(), actor)
+
     def ack_alert(self, alert_id: int, note: str | None, actor: Actor) -> dict:
         return self.store.ack_alert(alert_id, note, self.clock(), actor)
 

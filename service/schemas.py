@@ -194,6 +194,7 @@ class AlertPublic(BaseModel):
     acked_at: str | None
     acked_by: str | None
     ack_note: str | None
+    needs_review: bool = True
 
 
 class AlertPage(BaseModel):

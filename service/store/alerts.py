@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import json
 
-from ..alerting import AlertDraft
+from ..alerting import AlertDraft, needs_review
 from ..errors import Conflict, NotFound
 
 
@@ -13,23 +13,29 @@ class AlertsMixin:
         ids = []
         for kind, fid, cycle, detail in alerts:
             cur = conn.execute("INSERT INTO alerts (kind, facility_id, cycle, created_at, state, "
-                               "detail) VALUES (?, ?, ?, ?, 'open', ?)",
-                               (kind, fid, cycle, now, json.dumps(detail, sort_keys=True)))
+                               "detail, needs_review) VALUES (?, ?, ?, ?, 'open', ?, ?)",
+                               (kind, fid, cycle, now, json.dumps(detail, sort_keys=True),
+                                int(needs_review(kind))))
             ids.append(cur.lastrowid)
             self._enqueue(conn, cur.lastrowid, kind, fid, cycle, detail, now)
         return ids
 
-    def alerts(self, state=None, kind=None, facility_id=None, limit=100,
-               offset=0) -> tuple[list[dict], int]:
-        return self._page("alerts", "alert_id DESC",
-                          {"state": state, "kind": kind, "facility_id": facility_id},
-                          limit, offset)
+    def alerts(self, state=None, kind=None, facility_id=None, limit=100, offset=0,
+               needs_review=None) -> tuple[list[dict], int]:
+        rows, total = self._page("alerts", "alert_id DESC",
+                                 {"state": state, "kind": kind, "facility_id": facility_id,
+                                  "needs_review": None if needs_review is None
+                                  else int(needs_review)}, limit, offset)
+        for r in rows:
+            r["needs_review"] = bool(r["needs_review"])
+        return rows, total
 
     def alert(self, alert_id: int) -> dict:
         rows = self.read("SELECT * FROM alerts WHERE alert_id = ?", (alert_id,))
         if not rows:
             raise NotFound(f"no alert {alert_id}")
         rows[0]["detail"] = json.loads(rows[0]["detail"])
+        rows[0]["needs_review"] = bool(rows[0]["needs_review"])
         return rows[0]
 
     def ack_alert(self, alert_id: int, note: str | None, now: str, actor) -> dict:
@@ -48,5 +54,29 @@ class AlertsMixin:
                       facility_id=fid, cycle=cycle, target=str(alert_id))
         return self.alert(alert_id)
 
-    def open_alert_count(self) -> int:
-        return self.read("SELECT COUNT(*) AS n FROM alerts WHERE state = 'open'")[0]["n"]
+    def ack_alerts(self, alert_ids: list[int], note: str | None, now: str,
+                   actor) -> tuple[list[int], list[int]]:
+        """Acknowledge several alerts with one note in one transaction; returns the ids
+        acknowledged now and those skipped (unknown or already acknowledged)."""
+        done, skipped = [], []
+        with self.write() as conn:
+            for alert_id in dict.fromkeys(alert_ids):
+                row = conn.execute("SELECT state, facility_id, cycle FROM alerts WHERE "
+                                   "alert_id = ?", (alert_id,)).fetchone()
+                if row is None or row[0] == "acknowledged":
+                    skipped.append(alert_id)
+                    continue
+                conn.execute("UPDATE alerts SET state = 'acknowledged', acked_at = ?, "
+                             "acked_by = ?, ack_note = ? WHERE alert_id = ?",
+                             (now, actor[0], note, alert_id))
+                self._log(conn, now, actor, "alert_acknowledged",
+                          {"alert_id": alert_id, "note": note, "together_with": len(alert_ids)},
+                          facility_id=row[1], cycle=row[2], target=str(alert_id))
+                done.append(alert_id)
+        return done, skipped
+
+    def open_alert_count(self, needs_review: bool | None = None) -> int:
+        if needs_review is None:
+            return self.read("SELECT COUNT(*) AS n FROM alerts WHERE state = 'open'")[0]["n"]
+        return self.read("SELECT COUNT(*) AS n FROM alerts WHERE state = 'open' AND "
+                         "needs_review = ?", (int(needs_review),))[0]["n"]

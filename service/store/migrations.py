@@ -134,7 +134,16 @@ def _v7(db: sqlite_utils.Database) -> None:
         db.execute(f"ALTER TABLE cycles ADD COLUMN {column} {kind}")
 
 
-MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7]
+def _v8(db: sqlite_utils.Database) -> None:
+    """Alerts carry needs_review (service.alerting.needs_review at insert time): clears and
+    cap notices, kinds that only inform, are backfilled to 0."""
+    db.execute("ALTER TABLE alerts ADD COLUMN needs_review INTEGER NOT NULL DEFAULT 1")
+    db.execute("UPDATE alerts SET needs_review = 0 WHERE kind IN ('cleared', 'cap_reached')")
+    db.execute("CREATE INDEX IF NOT EXISTS alerts_queue ON alerts (state, needs_review, "
+               "alert_id)")
+
+
+MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8]
 
 
 def migrate(db: sqlite_utils.Database) -> int:

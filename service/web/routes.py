@@ -27,6 +27,11 @@ router = APIRouter(prefix="/ui", include_in_schema=False)
 STATUS_TEXT = {"monitoring": "Monitoring", "flagged": "Flagged", "cleared": "Cleared",
                "watching": "Watching (cleared)", "closed": "Closed"}
 templates.env.globals["status_text"] = STATUS_TEXT
+KIND_TEXT = {"flagged": "Flagged", "watch_signal": "Watch signal",
+             "decision_revised": "Decision revised", "stale": "Stale cycle",
+             "delivery_failed": "Delivery failed", "cleared": "Cleared",
+             "cap_reached": "Cap reached"}
+templates.env.globals["kind_text"] = KIND_TEXT
 PAGE = 50
 
 
@@ -39,9 +44,11 @@ def page(request: Request, name: str, user: UiUser | None, status: int = 200, **
 
 
 def back(url: str, message: str | None = None, kind: str = "ok") -> RedirectResponse:
+    """Redirect (303) to ``url`` with a message; its kind goes in ``msg_kind`` so that a
+    page's own ``kind`` filter in ``url`` survives the action."""
     if message:
         sep = "&" if "?" in url else "?"
-        url = f"{url}{sep}{urlencode({'msg': message, 'kind': kind})}"
+        url = f"{url}{sep}{urlencode({'msg': message, 'msg_kind': kind})}"
     return RedirectResponse(url, status_code=303)
 
 
@@ -109,7 +116,7 @@ def overview(request: Request, q: str = "", status: str = "", plan: str = "",
     pages = max(1, math.ceil(listing["total"] / PAGE))
     query = {"q": q, "status": status, "plan": plan, "sort": sort, "dir": dir}
     return page(request, "overview.html", user, listing=listing, counts=counts,
-                open_alerts=m.store.open_alert_count(), plans=sorted(m.plans.specs),
+                open_alerts=m.store.open_alert_count(needs_review=True), plans=sorted(m.plans.specs),
                 sorts=SORTS, query=query, page_no=page_no, pages=pages, msg=msg,
                 qs=lambda **kw: urlencode({**query, **kw}))
 
@@ -117,8 +124,8 @@ def overview(request: Request, q: str = "", status: str = "", plan: str = "",
 # -- one facility -------------------------------------------------------------------------
 @router.get("/facilities/{facility_id}", response_class=HTMLResponse)
 def facility(request: Request, facility_id: str, cycle: int | None = None,
-             msg: str | None = None, kind: str = "ok", user: UiUser = Depends(current_user),
-             m: Monitor = Depends(monitor)):
+             msg: str | None = None, msg_kind: str = "ok",
+             user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
     fac = m.facility(facility_id)
     number = cycle or fac["cycle"]
     records = m.records(facility_id, number)["items"]
@@ -141,7 +148,7 @@ def facility(request: Request, facility_id: str, cycle: int | None = None,
     from .draws import draws_context
     extra = after_decision_context(m, facility_id, cyc)
     return page(request, "facility.html", user, fac=fac, cyc=cyc, records=records, chart=chart,
-                alerts=alerts, msg=msg, kind=kind, is_current=number == fac["cycle"],
+                alerts=alerts, msg=msg, kind=msg_kind, is_current=number == fac["cycle"],
                 draws_ctx=draws_context(m, facility_id, number), **extra)
 
 
@@ -198,25 +205,50 @@ def casefile(facility_id: str, cycle: int, user: UiUser = Depends(current_user),
 
 
 # -- alerts ------------------------------------------------------------------------------------
-KINDS = ("flagged", "cleared", "decision_revised", "cap_reached", "stale", "delivery_failed")
+KINDS = ("flagged", "watch_signal", "decision_revised", "stale", "delivery_failed", "cleared",
+         "cap_reached")
+REVIEW = {"needed": True, "info": False, "all": None}
 
 
 @router.get("/alerts", response_class=HTMLResponse)
 def alerts(request: Request, state: str = "open", kind: str = "", facility_id: str = "",
-           page_no: int = 1, msg: str | None = None, kind_msg: str = "ok",
-           user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+           review: str = "needed", page_no: int = 1, msg: str | None = None,
+           msg_kind: str = "ok", user: UiUser = Depends(current_user),
+           m: Monitor = Depends(monitor)):
     state = state if state in ("open", "acknowledged", "all") else "open"
     kind = kind if kind in KINDS else ""
+    review = review if review in REVIEW else "needed"
     page_no = max(page_no, 1)
     listing = m.alerts(state=None if state == "all" else state, kind=kind or None,
-                       facility_id=facility_id.strip() or None, limit=PAGE,
-                       offset=(page_no - 1) * PAGE)
+                       facility_id=facility_id.strip() or None, needs_review=REVIEW[review],
+                       limit=PAGE, offset=(page_no - 1) * PAGE)
     delivery = m.store.outbox_status([a["alert_id"] for a in listing["items"]])
-    query = {"state": state, "kind": kind, "facility_id": facility_id}
+    query = {"state": state, "review": review, "kind": kind, "facility_id": facility_id}
+    informational = (m.store.open_alert_count(needs_review=False)
+                     if review == "needed" and state == "open" else None)
     return page(request, "alerts.html", user, listing=listing, delivery=delivery, kinds=KINDS,
-                query=query, page_no=page_no,
-                pages=max(1, math.ceil(listing["total"] / PAGE)), msg=msg,
+                query=query, page_no=page_no, informational=informational,
+                pages=max(1, math.ceil(listing["total"] / PAGE)), msg=msg, kind=msg_kind,
                 qs=lambda **kw: urlencode({**query, **kw}))
+
+
+def _back_to(back_to: str) -> str:
+    return back_to if back_to.startswith("/ui/") else "/ui/alerts"
+
+
+@router.post("/alerts/ack")
+def ack_selected(request: Request, alert_id: list[int] = Form([]), note: str = Form(""),
+                 csrf: str = Form(""), back_to: str = Form("/ui/alerts"),
+                 user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+    check_csrf(user, csrf)
+    target = _back_to(back_to)
+    if not alert_id:
+        return back(target, "Select the alerts to acknowledge first.", "error")
+    done, skipped = m.ack_alerts(alert_id, note.strip() or None, user.actor)
+    text = f"{len(done)} alert{'' if len(done) == 1 else 's'} acknowledged"
+    if skipped:
+        text += f"; {len(skipped)} skipped (already acknowledged or unknown)"
+    return back(target, text + ".")
 
 
 @router.post("/alerts/{alert_id}/ack")
@@ -224,7 +256,7 @@ def ack(request: Request, alert_id: int, note: str = Form(""), csrf: str = Form(
         back_to: str = Form("/ui/alerts"), user: UiUser = Depends(current_user),
         m: Monitor = Depends(monitor)):
     check_csrf(user, csrf)
-    target = back_to if back_to.startswith("/ui/") else "/ui/alerts"
+    target = _back_to(back_to)
     try:
         m.ack_alert(alert_id, note.strip() or None, user.actor)
     except ServiceError as exc:

@@ -1,0 +1,97 @@
+"""The alert list in a real browser (Playwright on Debian's Chromium, real uvicorn): the review
+queue, filters kept after acknowledging, acknowledging the selected alerts with one note, and
+flagged vs cleared told apart in words and colour. Screenshots go to artifacts/browser/."""
+import re
+
+import pytest
+
+from service.operations import Monitor, PlanBook
+from service.schemas import FacilityCreate
+from service.settings import load_settings
+from service.store import Store
+
+from .conftest import make_keys, record
+from .live_server import LiveServer, quiet_config
+from .test_ui_browser import CHROMIUM, browser, page, shot, sign_in  # noqa: F401
+
+pytestmark = [pytest.mark.browser,
+              pytest.mark.skipif(CHROMIUM is None, reason="Debian's chromium is not installed "
+                                 "(.ci/run installs it)")]
+
+
+@pytest.fixture(scope="module")
+def site(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("alerts-ui")
+    db = tmp / "ui.db"
+    store = Store(db)
+    store.migrate()
+    keys = make_keys(store)
+    m = Monitor(store=store, plans=PlanBook(load_settings(db_path=db).plans))
+    actor = ("seed", "admin")
+    batch = []
+    for i in range(4):                       # four flagged (three nonconforming in a row)
+        m.register_facility(FacilityCreate(facility_id=f"FL-{i}", name=f"Flagged {i}",
+                                           plan="dispensers"), actor)
+        batch += [record(f"FL-{i}", f"fl-{i}-{k}", 1) for k in range(3)]
+    for i in range(3):                       # three cleared (60 conforming, capped plan)
+        m.register_facility(FacilityCreate(facility_id=f"CL-{i}", name=f"Cleared {i}",
+                                           plan="scales_capped"), actor)
+        batch += [record(f"CL-{i}", f"cl-{i}-{k}", 0) for k in range(60)]
+    m.post_records({"records": batch}, actor, with_state=False)
+    with LiveServer(db, config=quiet_config(tmp)) as server:
+        yield server, keys
+
+
+def _rows(pg):
+    return pg.eval_on_selector_all("#alerts tbody tr[data-alert]",
+                                   "rows => rows.map(r => r.dataset.alert)")
+
+
+def test_review_queue_filters_kept_and_bulk_acknowledge(page, site):
+    server, keys = site
+    pg = page
+    sign_in(pg, server, keys.analyst)
+    pg.wait_for_url(re.compile(r"/ui/overview"))
+    assert pg.inner_text("#open-alerts") == "4"                  # only the flags to review
+    pg.goto(server.url + "/ui/alerts")
+    assert len(_rows(pg)) == 4
+    assert pg.locator("#alerts .kind.k-cleared").count() == 0    # clears are not in the queue
+    assert "3 open notices for information only" in pg.inner_text("#informational")
+    shot(pg, "20-alerts-review-queue")
+
+    pg.select_option("select[name=kind]", "flagged")             # autosubmits
+    pg.wait_for_url(re.compile(r"kind=flagged"))
+    first = pg.locator("#alerts tbody tr[data-alert]").first
+    first_id = first.get_attribute("data-alert")
+    first.locator("input[name=note]").fill("agency phoned")
+    first.locator("button:text('Acknowledge')").click()
+    pg.wait_for_selector(".flash.ok")
+    assert f"Alert {first_id} acknowledged" in pg.inner_text(".flash.ok")
+    # the filter survived the action (the message no longer overwrites `kind`)
+    assert pg.eval_on_selector("select[name=kind]", "s => s.value") == "flagged"
+    assert pg.eval_on_selector("select[name=review]", "s => s.value") == "needed"
+    left = _rows(pg)
+    assert len(left) == 3 and first_id not in left
+
+    for alert_id in left[:2]:
+        pg.check(f"input[name=alert_id][value='{alert_id}']")
+    pg.fill("#bulk-note", "visited both agencies on 2 December")
+    pg.click("#bulk-ack-button")
+    pg.wait_for_selector(".flash.ok")
+    assert "2 alerts acknowledged" in pg.inner_text(".flash.ok")
+    assert pg.eval_on_selector("select[name=kind]", "s => s.value") == "flagged"
+    assert _rows(pg) == left[2:]
+    shot(pg, "21-alerts-after-bulk-acknowledge")
+
+    pg.select_option("select[name=state]", "acknowledged")
+    pg.wait_for_url(re.compile(r"state=acknowledged"))
+    text = pg.inner_text("#alerts")
+    assert text.count("visited both agencies on 2 December") == 2
+
+    pg.goto(server.url + "/ui/alerts?state=all&review=all")
+    flagged = pg.locator("#alerts .kind.k-flagged").first
+    cleared = pg.locator("#alerts .kind.k-cleared").first
+    assert flagged.inner_text() == "Flagged" and cleared.inner_text() == "Cleared"
+    colour = "e => getComputedStyle(e).backgroundColor + ' ' + getComputedStyle(e).color"
+    assert flagged.evaluate(colour) != cleared.evaluate(colour)
+    shot(pg, "22-alerts-all")
