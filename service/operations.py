@@ -156,6 +156,12 @@ def cycle_public(row: dict) -> dict:
             "watch": watch_public(row, snap)}
 
 
+def finding_public(row: dict) -> dict:
+    return {"id": row["id"], "facility_id": row["facility_id"], "cycle": row["cycle"],
+            "outcome": row["outcome"], "note": row["note"], "at": row["at"],
+            "by": row["key_label"], "role": row["role"]}
+
+
 def watch_public(row: dict, snap: dict) -> dict | None:
     """The watch chart of a cleared cycle (None when it has none)."""
     if row.get("watch_state") is None:
@@ -239,7 +245,22 @@ class Monitor:
 
     def facility(self, facility_id: str, with_cycles: bool = True) -> dict:
         row = self.store.facility(facility_id)
-        return facility_public(row, self.store.cycles(facility_id) if with_cycles else None)
+        out = facility_public(row, self.store.cycles(facility_id) if with_cycles else None)
+        if with_cycles:
+            by_cycle: dict[int, list] = {}
+            for f in self.store.findings(facility_id):
+                by_cycle.setdefault(f["cycle"], []).append(finding_public(f))
+            for c in out["cycles"]:
+                c["findings"] = by_cycle.get(c["cycle"], [])
+                if c["decided_after_units"] is not None:
+                    c["after_decision"] = self.store.post_decision_summary(facility_id,
+                                                                           c["cycle"])
+        return out
+
+    def add_finding(self, facility_id: str, cycle: int, outcome: str, note: str | None,
+                    actor: Actor) -> dict:
+        return finding_public(self.store.add_finding(facility_id, cycle, outcome, note,
+                                                     self.clock(), actor))
 
     def facilities(self, **filters) -> dict:
         if filters.get("region") is not None:

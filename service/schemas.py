@@ -81,6 +81,28 @@ class AckCreate(_Strict):
     note: StrictStr | None = Field(default=None, max_length=2000)
 
 
+FindingOutcome = Literal["referred", "no_action", "records_corrected", "retraining_ordered",
+                         "certification_suspended"]
+
+
+class FindingCreate(_Strict):
+    """What the review of a decided cycle found."""
+
+    outcome: FindingOutcome
+    note: StrictStr | None = Field(default=None, max_length=2000)
+
+
+class FindingPublic(BaseModel):
+    id: int
+    facility_id: str
+    cycle: int
+    outcome: FindingOutcome
+    note: str | None
+    at: str
+    by: str | None
+    role: str | None
+
+
 class KeyCreate(_Strict):
     role: Role
     label: StrictStr = Field(min_length=1, max_length=200)
@@ -105,6 +127,8 @@ class CyclePublic(BaseModel):
     records: int
     plan_snapshot: dict[str, Any]
     watch: dict[str, Any] | None = None
+    findings: list[FindingPublic] = []
+    after_decision: dict[str, Any] | None = None
 
 
 class FacilityPublic(BaseModel):
@@ -358,3 +382,6 @@ class CaseFilePublic(BaseModel):
     assumptions: list[str]
     not_checked: list[str]
     generated_at: str
+    after_decision: dict[str, Any] | None = None
+    watch: dict[str, Any] | None = None
+    findings: list[FindingPublic] = []

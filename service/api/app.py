@@ -13,8 +13,8 @@ from ..settings import Settings, load_settings
 from ..store import Store
 from ..version import software_version
 from .limits import BodyLimit, TokenBuckets
-from . import actions, alerts, casefiles, draws, facilities, health, keys, metrics, plans, \
-    problems, records, webhooks
+from . import actions, alerts, casefiles, draws, facilities, findings, health, keys, \
+    metrics, plans, problems, records, webhooks
 from . import program as program_api
 
 DESCRIPTION = (
@@ -58,8 +58,8 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     problems.install(app)
     # Routes are matched in the order they were added, one by one: the record route, which
     # takes almost all the traffic, goes first and the dashboard's many pages last.
-    for module in (records, health, facilities, casefiles, draws, alerts, plans, metrics, actions,
-                   keys, webhooks, program_api):
+    for module in (records, health, facilities, findings, casefiles, draws, alerts, plans,
+                   metrics, actions, keys, webhooks, program_api):
         app.include_router(module.router)
     from .docs import install_docs
     install_docs(app)

@@ -76,7 +76,10 @@ def build_casefile(store: Store, facility_id: str, cycle: int | None = None,
                       level)
     figures = design_plan(plan, calibrated=bool(snap.get("calibrate"))).to_dict()
     actions, _ = store.actions(limit=10_000, facility_id=facility_id, cycle=number)
+    from .after import after_decision
+    after = after_decision(store, facility_id, number, cyc, snap)
     return {
+        **after,
         "facility": {"facility_id": fac["facility_id"], "name": fac["name"],
                      "plan": fac["plan"], "registered_at": fac["created_at"]},
         "cycle": number,

@@ -12,6 +12,7 @@ from reportlab.platypus import (Image, KeepTogether, PageBreak, Paragraph, Simpl
                                 Spacer, Table, TableStyle)
 
 from ..charts import curves_figure, figure_png, path_figure
+from .after import pdf_section
 
 _STYLES = getSampleStyleSheet()
 BODY = ParagraphStyle("body", parent=_STYLES["BodyText"], fontSize=9.5, leading=12.5)
@@ -73,6 +74,7 @@ def render_pdf(cf: dict) -> bytes:
                ["units audited / nonconforming", f"{cf['units']} / {cf['nonconforming']}"],
                ["LLR at the decision", _fmt(cf["llr"])]], [60 * mm, 118 * mm], header=False,
               font=9),
+        *pdf_section(cf, _p, _t, _grid, H2, SMALL),
         _p("What the data say about the facility's rate", H2),
         _grid([["quantity", "value", "meaning"],
                ["sequential p-value (H0: rate = p0)", _fmt(cf["p_value"]),

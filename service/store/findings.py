@@ -56,6 +56,22 @@ class FindingsMixin:
             raise NotFound(f"no finding {finding_id}")
         return rows[0]
 
+    def post_decision_summary(self, facility_id: str, cycle: int) -> dict | None:
+        """Records kept after a cycle's decision (not evidence, not void): how many, their
+        units and nonconforming units, and the span of their observation times (UTC)."""
+        rows = self.read("SELECT c.decided_seq AS decided_seq, COUNT(r.seq) AS records, "
+                         "COALESCE(SUM(r.units), 0) AS units, COALESCE(SUM(r.nonconforming), 0) "
+                         "AS nonconforming, MIN(r.observed_utc) AS first_observed, "
+                         "MAX(r.observed_utc) AS last_observed FROM cycles c LEFT JOIN records r "
+                         "ON r.facility_id = c.facility_id AND r.cycle = c.cycle AND r.void = 0 "
+                         "AND r.seq > c.decided_seq WHERE c.facility_id = ? AND c.cycle = ? "
+                         "GROUP BY c.facility_id, c.cycle", (facility_id, cycle))
+        if not rows or rows[0]["decided_seq"] is None:
+            return None
+        out = rows[0]
+        del out["decided_seq"]
+        return out
+
     def findings(self, facility_id: str, cycle: int | None = None) -> list[dict]:
         if cycle is None:
             return self.read("SELECT * FROM findings WHERE facility_id = ? ORDER BY id",

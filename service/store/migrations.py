@@ -143,7 +143,15 @@ def _v8(db: sqlite_utils.Database) -> None:
                "alert_id)")
 
 
-MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8]
+def _v9(db: sqlite_utils.Database) -> None:
+    """Findings: what the review of a decided cycle found (several per cycle)."""
+    db["findings"].create({"id": int, "facility_id": str, "cycle": int, "outcome": str,
+                           "note": str, "at": str, "key_label": str, "role": str}, pk="id",
+                          not_null={"facility_id", "cycle", "outcome", "at"})
+    db["findings"].create_index(["facility_id", "cycle", "id"])
+
+
+MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8, _v9]
 
 
 def migrate(db: sqlite_utils.Database) -> int:

@@ -124,7 +124,7 @@ def overview(request: Request, q: str = "", status: str = "", plan: str = "",
 # -- one facility -------------------------------------------------------------------------
 @router.get("/facilities/{facility_id}", response_class=HTMLResponse)
 def facility(request: Request, facility_id: str, cycle: int | None = None,
-             msg: str | None = None, msg_kind: str = "ok",
+             msg: str | None = None, msg_kind: str = "ok", after: int = 0, page_no: int = 1,
              user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
     fac = m.facility(facility_id)
     number = cycle or fac["cycle"]
@@ -146,7 +146,8 @@ def facility(request: Request, facility_id: str, cycle: int | None = None,
     alerts = m.alerts(facility_id=facility_id, limit=20)["items"]
     from .after_decision import after_decision_context
     from .draws import draws_context
-    extra = after_decision_context(m, facility_id, cyc)
+    extra = after_decision_context(m, facility_id, cyc, records, bool(after), page_no, PAGE)
+    records = extra.pop("records")
     return page(request, "facility.html", user, fac=fac, cyc=cyc, records=records, chart=chart,
                 alerts=alerts, msg=msg, kind=msg_kind, is_current=number == fac["cycle"],
                 draws_ctx=draws_context(m, facility_id, number), **extra)
@@ -166,6 +167,25 @@ def void(request: Request, facility_id: str, record_id: str, reason: str = Form(
         return back(target, exc.detail, "error")
     note = " The decision was revised." if out["decision_revised"] else ""
     return back(target, f"Record {record_id} voided; the cycle was replayed.{note}")
+
+
+@router.post("/facilities/{facility_id}/cycles/{cycle}/findings")
+def add_finding(request: Request, facility_id: str, cycle: int, outcome: str = Form(""),
+                note: str = Form(""), csrf: str = Form(""), user: UiUser = Depends(current_user),
+                m: Monitor = Depends(monitor)):
+    check_csrf(user, csrf)
+    from urllib.parse import quote
+    target = f"/ui/facilities/{quote(facility_id, safe='')}?cycle={cycle}"
+    from ..schemas import FindingCreate
+    try:
+        body = FindingCreate(outcome=outcome, note=note.strip() or None)
+    except ValueError:
+        return back(target, "Choose what the review found.", "error")
+    try:
+        m.add_finding(facility_id, cycle, body.outcome, body.note, user.actor)
+    except ServiceError as exc:
+        return back(target, exc.detail, "error")
+    return back(target, f"Finding recorded on cycle {cycle}.")
 
 
 @router.post("/facilities/{facility_id}/cycles")
