@@ -30,7 +30,17 @@ def agencies(count: int = 30, seed: int = 20261201) -> list[dict]:
         name = f"{_FIRST[i % len(_FIRST)]} {_SECOND[(i // len(_FIRST) + i) % len(_SECOND)]}"
         out.append({"facility_id": f"SA-{101 + i}", "name": name, "plan": plan,
                     "true_rate": float(rate)})
+    # One dispensers agency was spotless before the demo (so its history clears it and the
+    # watch chart starts) and drifts upward once the demo runs: a watch signal follows within
+    # a few minutes (the chart's limit, 62 with weight 23, is reached after about 9 of its
+    # units on average at this rate: exact ARL 9.5 by the Markov chain, tests/test_demo_watch.py).
+    out[DRIFTING]["history_rate"] = 0.0
+    out[DRIFTING]["drift_rate"] = 0.35
     return out
+
+
+#: Index of the agency that drifts upward after its clear.
+DRIFTING = 0
 
 
 INSPECTORS = ["R. Okafor", "M. Lindqvist", "T. Haddad", "S. Moreau", "J. Abernethy"]

@@ -13,7 +13,7 @@ from urllib.parse import quote
 import numpy as np
 
 from ..clock import utc_now
-from ..demo_scenario import INSPECTORS, OFFICE, agencies
+from ..demo_scenario import DRIFTING, INSPECTORS, OFFICE, agencies
 from ..operations import Monitor, PlanBook
 from ..sampling import Sampling
 from ..schemas import FacilityCreate
@@ -89,7 +89,9 @@ def _seed_history(monitor: Monitor, actor, weeks: int = 4, per_week: int = 10,
                     timedelta(hours=int(rng.integers(8, 24 * 6)))
                 batch.append({"record_id": f"hist-{fid}-{drawn['draw_id']}-{u['order']}",
                               "facility_id": fid, "observed_at": format_time(when),
-                              "units": 1, "nonconforming": int(rng.random() < a["true_rate"]),
+                              "units": 1,
+                              "nonconforming": int(rng.random() < a.get("history_rate",
+                                                                        a["true_rate"])),
                               "unit_ref": u["unit_ref"],
                               "inspector": INSPECTORS[int(rng.integers(len(INSPECTORS)))]})
             if rng.random() < 0.2:           # a walk-in re-check of a unit not drawn
@@ -135,6 +137,7 @@ def feed(base_url: str, key: str, seconds: float, rate: float, seed_value: int =
 
     rng = np.random.default_rng(seed_value)
     by_id = {a["facility_id"]: a for a in agencies()}
+    drifting, drift_left = agencies()[DRIFTING], 40
     headers = {"Authorization": f"Bearer {key}"}
     sent = 0
     deadline = time.monotonic() + seconds
@@ -154,17 +157,24 @@ def feed(base_url: str, key: str, seconds: float, rate: float, seed_value: int =
             except (httpx2.TransportError, ValueError, KeyError):
                 time.sleep(0.5)
                 continue
-            if not work:
+            if drift_left and rng.random() < 0.2:
+                # the drifting agency, watched since its clear, keeps being re-checked on
+                # complaints (not from a draw): its chart signals within a few minutes
+                drift_left -= 1
+                a, unit = drifting, f"{unit_prefix(drifting)}-AFTER-{40 - drift_left:03d}"
+            elif not work:
                 time.sleep(1.0)              # nothing drawn to re-check: wait for the office
                 continue
-            job = work[int(rng.integers(len(work)))]
-            a = by_id[job["facility_id"]]
-            unit = job["units"][0]["unit_ref"]
-            if rng.random() < 0.03:
-                unit = f"{unit_prefix(a)}-WALKIN-{int(rng.integers(1000, 9999))}"
+            else:
+                job = work[int(rng.integers(len(work)))]
+                a = by_id[job["facility_id"]]
+                unit = job["units"][0]["unit_ref"]
+                if rng.random() < 0.03:
+                    unit = f"{unit_prefix(a)}-WALKIN-{int(rng.integers(1000, 9999))}"
             body = {"record_id": f"demo-{run}-{sent}", "facility_id": a["facility_id"],
                     "observed_at": utc_now(), "units": 1,
-                    "nonconforming": int(rng.random() < a["true_rate"]), "unit_ref": unit,
+                    "nonconforming": int(rng.random() < a.get("drift_rate", a["true_rate"])),
+                    "unit_ref": unit,
                     "inspector": INSPECTORS[int(rng.integers(len(INSPECTORS)))]}
             try:
                 client.post("/v1/records", json=body)
@@ -250,6 +260,9 @@ def run_demo(settings: Settings, minutes: float, rate: float) -> int:
           "facilities; the field key only posts records")
     print(f"  feeding simulated tablet posts for {minutes:g} min at about {rate:g}/s; "
           "Ctrl-C stops the service")
+    drifting = agencies()[DRIFTING]
+    print(f"  {drifting['facility_id']} ({drifting['name']}) was cleared before the demo and "
+          "drifts upward now: its watch chart signals within a few minutes")
     print("  A boundary crossing is a statistical signal for review under the agency's own "
           "procedures, not a verdict.")
     sys.stdout.flush()
