@@ -133,12 +133,16 @@ def _cmd_plans(args, parser) -> int:
         result = design(**spec.design_args())
         if args.json:
             out[name] = result.to_dict()
-            if spec.watch is not None:
-                from .watching import design_for
-                out[name]["watch"] = design_for(spec.p0, spec.p1, spec.watch).to_dict()
+            from .watching import design_for
+            out[name]["watch"] = (None if spec.watch is None else
+                                  design_for(spec.p0, spec.p1, spec.watch).to_dict())
         else:
             sys.stdout.write(render(result, title=f"Plan '{name}'" +
                                     (f": {spec.title}" if spec.title else "")))
+            if spec.watch is not None:
+                from .watching import design_for, report_lines
+                sys.stdout.write("\n".join(report_lines(design_for(spec.p0, spec.p1,
+                                                                    spec.watch))) + "\n")
             sys.stdout.write("\n")
     if args.json:
         json.dump(out, sys.stdout, indent=2)

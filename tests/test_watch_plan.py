@@ -131,3 +131,15 @@ def test_nonconforming_first_signals_when_any_order_would():
     # the order (bad, good, bad) reaches only 4 - 1 + 4 = 7.
     _, sig = apply_units(Chart(5, 8), WatchState(), 3, 2)
     assert sig is not None and sig.value == 8
+
+
+def test_plans_command_shows_the_configured_charts():
+    out = run("plans", "--json")
+    assert out.returncode == 0, out.stderr
+    d = json.loads(out.stdout)
+    # config/seqaudit.toml: dispensers arl0 2000 over 400 audits, scales arl0 2000
+    assert d["dispensers"]["watch"] == design_watch(0.02, 0.08, 2000, 400).to_dict()
+    assert d["scales"]["watch"] == design_watch(0.04, 0.12, 2000, 250).to_dict()
+    assert d["scales_capped"]["watch"] is None
+    text = run("plans").stdout
+    assert text.count("Watch after a clear") == 2

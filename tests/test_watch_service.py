@@ -166,3 +166,17 @@ def test_facility_page_shows_the_chart(app, client, keys):
         # 0 -> 22 -> 21 by the chart's definition
         assert "stands at <strong>21</strong> of the limit 62" in page
         assert "Watch chart after the clear" in page and "not a verdict" in page
+
+
+def test_verify_agrees_after_a_signal(app, client, keys):
+    # `seqaudit verify` replays every cycle from its records: the records that moved to the
+    # cycle a signal opened are its evidence, those up to the signal stay post-decision.
+    from service.verify import verify_database
+    fid = new_facility(client, keys)
+    clear(client, keys, fid)
+    client.post("/v1/records", json={"records": [record(fid, f"v{i}", int(i < 3))
+                                                 for i in range(6)]},
+                headers=keys.header("field"))
+    assert facility(client, keys, fid)["cycle"] == 2
+    report = verify_database(app.state.monitor.store)
+    assert report.ok, report
