@@ -37,6 +37,10 @@ def site(tmp_path_factory):
         m.register_facility(FacilityCreate(facility_id=f"CL-{i}", name=f"Cleared {i}",
                                            plan="scales_capped"), actor)
         batch += [record(f"CL-{i}", f"cl-{i}-{k}", 0) for k in range(60)]
+    m.register_facility(FacilityCreate(facility_id="WA-0", name="Watched 0", plan="dispensers"),
+                        actor)                # cleared at 36 conforming, then watched
+    batch += [record("WA-0", f"wa-{k}", 0) for k in range(36)]
+    batch += [record("WA-0", "wa-bad", 1, units=2)]          # chart 0 -> 22 -> 21
     m.post_records({"records": batch}, actor, with_state=False)
     with LiveServer(db, config=quiet_config(tmp)) as server:
         yield server, keys
@@ -56,7 +60,7 @@ def test_review_queue_filters_kept_and_bulk_acknowledge(page, site):
     pg.goto(server.url + "/ui/alerts")
     assert len(_rows(pg)) == 4
     assert pg.locator("#alerts .kind.k-cleared").count() == 0    # clears are not in the queue
-    assert "3 open notices for information only" in pg.inner_text("#informational")
+    assert "4 open notices for information only" in pg.inner_text("#informational")
     shot(pg, "20-alerts-review-queue")
 
     pg.select_option("select[name=kind]", "flagged")             # autosubmits
@@ -95,3 +99,23 @@ def test_review_queue_filters_kept_and_bulk_acknowledge(page, site):
     colour = "e => getComputedStyle(e).backgroundColor + ' ' + getComputedStyle(e).color"
     assert flagged.evaluate(colour) != cleared.evaluate(colour)
     shot(pg, "22-alerts-all")
+
+
+def test_watched_facility_page_and_a_finding(page, site):
+    server, keys = site
+    pg = page
+    sign_in(pg, server, keys.analyst)
+    pg.wait_for_url(re.compile(r"/ui/overview"))
+    pg.goto(server.url + "/ui/facilities/WA-0")
+    assert "Watching (cleared)" in pg.inner_text("h1")
+    assert "stands at 21 of the limit 62" in pg.inner_text("#watch-state")
+    assert pg.locator("#watch svg.chart").count() == 1
+    assert "1 record kept (2 units, 1 nonconforming)" in pg.inner_text("#after-summary")
+    pg.select_option("#finding-outcome", "no_action")
+    pg.fill("#finding-note", "the agency replaced a worn nozzle")
+    pg.click("#finding-add")
+    pg.wait_for_selector(".flash.ok")
+    assert "Finding recorded on cycle 1" in pg.inner_text(".flash.ok")
+    assert "No action needed: the agency replaced a worn nozzle" in pg.inner_text("#finding-list")
+    assert "test analyst" in pg.inner_text("#finding-list")
+    shot(pg, "23-facility-watching-finding")
