@@ -180,3 +180,23 @@ def test_verify_agrees_after_a_signal(app, client, keys):
     assert facility(client, keys, fid)["cycle"] == 2
     report = verify_database(app.state.monitor.store)
     assert report.ok, report
+
+
+def test_case_file_of_a_watched_clear_shows_the_chart(client, keys):
+    import io
+
+    from pypdf import PdfReader
+    fid = new_facility(client, keys)
+    clear(client, keys, fid)
+    client.post("/v1/records", json=record(fid, "k1", 1, units=3), headers=keys.header("field"))
+    cf = client.get(f"/v1/facilities/{fid}/cycles/1/casefile.json",
+                    headers=keys.header("analyst")).json()
+    # by the chart's definition, nonconforming first: 0 -> 22 -> 21 -> 20
+    assert (cf["watch"]["state"], cf["watch"]["value"], cf["watch"]["t"]) == ("watching", 20, T)
+    assert cf["watch"]["arl_p0"] == W.arl_p0 and cf["watch"]["arl_p1"] == W.arl_p1
+    assert [p["value"] for p in cf["watch"]["points"]] == [20]
+    pdf = client.get(f"/v1/facilities/{fid}/cycles/1/casefile.pdf",
+                     headers=keys.header("analyst")).content
+    text = " ".join(p.extract_text() for p in PdfReader(io.BytesIO(pdf)).pages)
+    assert "Watch chart after the clear: 20 of the limit 62" in text
+    assert f"once in {W.arl_p0:.0f} units" in text

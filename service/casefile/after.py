@@ -42,9 +42,10 @@ def pdf_section(cf: dict, p, t, grid, h2, small) -> list:
             text = (f"Watch chart after the clear: {w['value']} of the limit {w['t']} after "
                     f"{w['units']} units ({w['nonconforming']} nonconforming).")
         out.append(p(text + f" Chart S = max(0, S + {w['m']} X - 1) per unit (Reynolds and "
-                     f"Stoumbos 1999); at p0 a false signal comes on average once in "
-                     f"{(w['arl_p0'] or 0):.0f} units (exact, Markov chain of Brook and Evans "
-                     f"1972)."))
+                     f"Stoumbos 1999), limit t = {w['t']} (h = {w['h']:.3f}); at p0 a false "
+                     f"signal comes on average once in {(w['arl_p0'] or 0):.0f} units, at "
+                     f"p1 = {w['p1']:g} after {(w['arl_p1'] or 0):.0f} units on average "
+                     f"(exact, Markov chain of Brook and Evans 1972)."))
     out.append(p("Findings of the review", h2))
     if cf.get("findings"):
         rows = [["when (UTC)", "who", "outcome", "note"]]
