@@ -124,7 +124,8 @@ class WatchMixin:
         cyc = rows[0]
         chart = chart_of(cyc["plan_json"])
         recs = self.read("SELECT seq, record_id, units, nonconforming FROM records WHERE "
-                         "facility_id = ? AND cycle = ? AND void = 0 AND seq > ? ORDER BY seq",
+                         "facility_id = ? AND cycle = ? AND void = 0 AND excluded IS NULL AND seq > ? "
+                         "ORDER BY seq",
                          (facility_id, cycle, cyc["decided_seq"]))
         if cyc["watch_signal_seq"] is not None:
             recs = [r for r in recs if r["seq"] <= cyc["watch_signal_seq"]]
