@@ -63,7 +63,9 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
         app.include_router(module.router)
     from .docs import install_docs
     install_docs(app)
+    from ..web.field_app import install_field_app
     from ..web.install import install_ui
+    install_field_app(app)
     install_ui(app)
     return app
 
