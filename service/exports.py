@@ -86,12 +86,17 @@ def export_lines(monitor, export: str, **filters) -> Iterator[str]:
     return csv_lines(COLUMNS[export], export_rows(monitor, export, **filters))
 
 
+def file_safe(text: str) -> str:
+    """``text`` for a download's file name: ASCII letters, digits, ``-_.``; anything else
+    ``_`` (a header value must be Latin-1, and a name must not carry a path)."""
+    return "".join(ch if (ch.isascii() and ch.isalnum()) or ch in "-_." else "_" for ch in text)
+
+
 def filename(kind: str, facility_id: str | None = None, cycle: int | None = None) -> str:
     """A safe download name, e.g. ``records-SA-301-cycle2.csv``."""
     parts = [kind]
     if facility_id:
-        parts.append("".join(ch if (ch.isascii() and ch.isalnum()) or ch in "-_." else "_"
-                             for ch in facility_id))
+        parts.append(file_safe(facility_id))
     if cycle:
         parts.append(f"cycle{cycle}")
     return "-".join(parts) + ".csv"

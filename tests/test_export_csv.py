@@ -153,3 +153,13 @@ def test_openapi_lists_csv_beside_json(client):
                  "/v1/actions"):
         content = doc["paths"][path]["get"]["responses"]["200"]["content"]
         assert {"application/json", "text/csv"} <= set(content), path
+
+
+def test_download_names_stay_latin1_for_any_facility_id(client, keys):
+    """Found by the OpenAPI fuzz: a filter value outside Latin-1 went raw into the
+    Content-Disposition header and the answer was 500."""
+    r = client.get("/v1/alerts", params={"facility_id": "Ā", "format": "csv"},
+                   headers=keys.header("analyst"))
+    assert r.status_code == 200
+    r.headers["content-disposition"].encode("latin-1")
+    assert exports.file_safe("Łódź-1/../x") == "__d_-1_.._x"   # Ł ó ź and both slashes become _

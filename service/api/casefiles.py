@@ -4,6 +4,7 @@ from starlette.concurrency import run_in_threadpool
 
 from ..casefile import build_casefile
 from ..casefile.pdf import render_pdf
+from ..exports import file_safe
 from ..operations import Monitor
 from ..schemas import CaseFilePublic
 from .deps import Id, analyst, monitor
@@ -27,6 +28,6 @@ async def casefile_pdf(facility_id: str, cycle: Id, ci_level: float = Level,
                        actor=Depends(analyst), m: Monitor = Depends(monitor)):
     cf = await run_in_threadpool(build_casefile, m.store, facility_id, cycle, ci_level)
     pdf = await run_in_threadpool(render_pdf, cf)
-    safe = "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in facility_id)
+    safe = file_safe(facility_id)
     return Response(pdf, media_type="application/pdf", headers={
         "Content-Disposition": f'attachment; filename="casefile-{safe}-cycle{cycle}.pdf"'})

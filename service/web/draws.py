@@ -10,6 +10,7 @@ from fastapi import APIRouter, Depends, File, Form, Request, UploadFile
 from fastapi.responses import PlainTextResponse, Response
 
 from ..errors import ServiceError
+from ..exports import file_safe
 from ..operations import Monitor
 from ..sampling import Sampling, frame_file_name
 from ..sampling_schemas import FramePeriod
@@ -101,7 +102,7 @@ def draw_csv(facility_id: str, draw_id: int, user: UiUser = Depends(current_user
     for u in d["units"]:
         w.writerow([facility_id, draw_id, u["order"], u["frame_position"], u["unit_ref"],
                     u["record_id"] or "", d["frame_sha256"], d["key"]])
-    safe = "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in facility_id)
+    safe = file_safe(facility_id)
     return Response(buf.getvalue(), media_type="text/csv; charset=utf-8", headers={
         "Content-Disposition": f'attachment; filename="draw-{safe}-{draw_id}.csv"'})
 

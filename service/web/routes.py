@@ -12,6 +12,7 @@ from fastapi.templating import Jinja2Templates
 
 from ..cautions import ASSUMPTIONS, SIGNAL_NOT_VERDICT
 from ..errors import ServiceError
+from ..exports import file_safe
 from ..operations import Monitor
 from ..stats import PlanInputError
 from .sessions import (COOKIE, LOGIN_CSRF_COOKIE, BadCsrf, UiUser, check_csrf,
@@ -219,7 +220,7 @@ def casefile(facility_id: str, cycle: int, user: UiUser = Depends(current_user),
     from ..casefile import build_casefile
     from ..casefile.pdf import render_pdf
     pdf = render_pdf(build_casefile(m.store, facility_id, cycle))
-    safe = "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in facility_id)
+    safe = file_safe(facility_id)
     return Response(pdf, media_type="application/pdf", headers={
         "Content-Disposition": f'attachment; filename="casefile-{safe}-cycle{cycle}.pdf"'})
 
