@@ -12,6 +12,11 @@ class ServiceError(Exception):
         self.detail = detail
         self.extra = extra
 
+    @property
+    def headers(self) -> dict | None:
+        """HTTP headers the problem response carries (e.g. Retry-After), if any."""
+        return None
+
 
 class NotFound(ServiceError):
     status, slug, title = 404, "not-found", "Not found"
@@ -27,3 +32,22 @@ class Invalid(ServiceError):
 
 class TooLarge(ServiceError):
     status, slug, title = 413, "too-large", "Request too large"
+
+
+class Busy(ServiceError):
+    """The heavy-work pool is full (service/heavy.py): 503 with Retry-After."""
+
+    status, slug, title = 503, "busy", "Service busy"
+
+    def __init__(self, detail: str, retry_after: int = 1, **extra):
+        super().__init__(detail, retry_after_s=retry_after, **extra)
+
+    @property
+    def headers(self) -> dict:
+        return {"Retry-After": str(self.extra["retry_after_s"])}
+
+
+class TimedOut(Busy):
+    """A heavy job ran past its time limit and was stopped: 503 with Retry-After."""
+
+    slug, title = "timed-out", "Took too long"

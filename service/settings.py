@@ -9,6 +9,7 @@ import os
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 
+from .heavy import HeavySettings
 from .plans import ConfigError, PlanSpec, load_plans, read_toml
 
 PROJECT_ROOT = Path(__file__).resolve().parent.parent
@@ -59,6 +60,7 @@ class Settings:
     plans: dict[str, PlanSpec] = field(default_factory=dict)
     schedule: ScheduleSettings = field(default_factory=ScheduleSettings)
     delivery: DeliverySettings = field(default_factory=DeliverySettings)
+    heavy: HeavySettings = field(default_factory=HeavySettings)
 
     def with_overrides(self, **values) -> "Settings":
         return replace(self, **{k: v for k, v in values.items() if v is not None})
@@ -132,6 +134,7 @@ def load_settings(config_path: str | Path | None = None, environ=None, **overrid
             values[name] = _coerce(ENV_PREFIX + key.upper(), kind, raw, "environment")
     values["schedule"] = _section(data, "schedule", ScheduleSettings, path)
     values["delivery"] = _section(data, "delivery", DeliverySettings, path)
+    values["heavy"] = _section(data, "heavy", HeavySettings, path)
     settings = Settings(**values)
     known = {f.name for f in fields(Settings)}
     return settings.with_overrides(**{k: v for k, v in overrides.items() if k in known})

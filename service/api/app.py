@@ -8,6 +8,7 @@ from typing import Callable
 from fastapi import FastAPI
 
 from ..clock import utc_now
+from ..heavy import HeavyPool
 from ..operations import Monitor, PlanBook
 from ..settings import Settings, load_settings
 from ..store import Store
@@ -30,6 +31,7 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     monitor = Monitor(store=store, plans=PlanBook(settings.plans), clock=clock or utc_now,
                       max_batch=settings.max_batch,
                       future_tolerance_s=settings.future_tolerance_s)
+    heavy = HeavyPool(settings.heavy)
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):
@@ -47,12 +49,14 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
             if scheduler is not None:
                 scheduler.shutdown(wait=True)
                 http.close()
+            heavy.close()
             store.close()
 
     app = FastAPI(title="seqaudit", version=software_version(), description=DESCRIPTION,
                   lifespan=lifespan, docs_url=None, redoc_url=None)
     app.state.settings = settings
     app.state.monitor = monitor
+    app.state.heavy = heavy          # case files, plan designs: service/heavy.py
     app.state.buckets = TokenBuckets(settings.rate_per_s, settings.rate_burst)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     problems.install(app)
@@ -77,6 +81,7 @@ def app_from_env() -> FastAPI:
     for noisy in ("apscheduler", "httpx2", "httpcore2", "httpx", "httpcore"):
         logging.getLogger(noisy).setLevel(logging.WARNING)
     app = create_app(load_settings())
+    app.state.heavy.warm()         # worker processes up before the first case file
     # Everything imported and built so far lives as long as the process. Freezing it keeps the
     # cyclic garbage collector from walking those millions of objects on each full
     # collection: otherwise every few thousand records a request stalls for 60-100 ms. A batch

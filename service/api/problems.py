@@ -44,7 +44,8 @@ class AuthProblem(Exception):
 def install(app: FastAPI) -> None:
     @app.exception_handler(ServiceError)
     async def _service(request: Request, exc: ServiceError):
-        return problem(request, exc.status, exc.detail, exc.slug, exc.title, **exc.extra)
+        return problem(request, exc.status, exc.detail, exc.slug, exc.title, headers=exc.headers,
+                       **exc.extra)
 
     @app.exception_handler(AuthProblem)
     async def _auth(request: Request, exc: AuthProblem):

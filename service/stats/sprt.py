@@ -41,6 +41,10 @@ class PlanInputError(ValueError):
         super().__init__(message)
         self.argument = argument
 
+    def __reduce__(self):
+        # so the error crosses a process boundary intact (the heavy pool's workers)
+        return (type(self), (self.argument, str(self)))
+
 
 def check_rates(p0: float, p1: float, alpha: float, beta: float,
                 max_units: int | None = None, cut_llr: float = 0.0) -> None:

@@ -108,7 +108,9 @@ def install_ui(app: FastAPI) -> None:
     @app.exception_handler(ServiceError)
     async def _service(request: Request, exc: ServiceError):
         if _is_ui(request):
-            return error_page(request, exc.status, exc.title, exc.detail)
+            page = error_page(request, exc.status, exc.title, exc.detail)
+            page.headers.update(exc.headers or {})
+            return page
         return await api_service(request, exc)
 
     @app.exception_handler(StarletteHTTPException)

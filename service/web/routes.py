@@ -215,6 +215,7 @@ def close(request: Request, facility_id: str, reason: str = Form(""), csrf: str 
 
 
 @router.get("/facilities/{facility_id}/cycles/{cycle}/casefile.pdf")
+<<<<<<< HEAD
 def casefile(facility_id: str, cycle: int, user: UiUser = Depends(current_user),
              m: Monitor = Depends(monitor)):
     from ..casefile import build_casefile
@@ -223,6 +224,13 @@ def casefile(facility_id: str, cycle: int, user: UiUser = Depends(current_user),
     safe = file_safe(facility_id)
     return Response(pdf, media_type="application/pdf", headers={
         "Content-Disposition": f'attachment; filename="casefile-{safe}-cycle{cycle}.pdf"'})
+=======
+async def casefile(request: Request, facility_id: str, cycle: int,
+                   user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+    from ..api.casefiles import attachment, casefile as heavy_casefile
+    pdf = await heavy_casefile(request, m, "pdf", facility_id, cycle, 0.95)
+    return Response(pdf, media_type="application/pdf", headers=attachment(facility_id, cycle))
+>>>>>>> 4a685eb (Heavy work (case files, workbench designs) in a bounded pool of worker processes: timeout, 503 with Retry-After when full, results cached by inputs and a cycle fingerprint)
 
 
 # -- alerts ------------------------------------------------------------------------------------
@@ -287,18 +295,26 @@ def ack(request: Request, alert_id: int, note: str = Form(""), csrf: str = Form(
 
 # -- plan workbench ---------------------------------------------------------------------------
 @router.get("/workbench", response_class=HTMLResponse)
+<<<<<<< HEAD
 def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str = "0.05",
               beta: str = "0.10", max_units: str = "", calibrate: str = "",
               register_size: str = "", register_false_flags: str = "",
               watch_arl0: str = "", watch_p1: str = "",
               user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+=======
+async def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str = "0.05",
+                    beta: str = "0.10", max_units: str = "", calibrate: str = "",
+                    register_size: str = "", register_false_flags: str = "",
+                    user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+>>>>>>> 4a685eb (Heavy work (case files, workbench designs) in a bounded pool of worker processes: timeout, 503 with Retry-After when full, results cached by inputs and a cycle fingerprint)
     form = {"p0": p0, "p1": p1, "alpha": alpha, "beta": beta, "max_units": max_units,
             "calibrate": bool(calibrate), "register_size": register_size,
             "register_false_flags": register_false_flags, "watch_arl0": watch_arl0,
             "watch_p1": watch_p1}
     result, error, charts, register = None, None, None, None
     if "p0" in request.query_params:
-        from ..stats import design
+        from ..heavy import run_heavy
+        from ..heavy_jobs import design_job
         try:
             values = {k: float(form[k]) for k in ("p0", "p1", "alpha", "beta")}
         except ValueError:
@@ -312,14 +328,18 @@ def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str =
                     error = "The cap must be a whole number of units, or empty for none."
             if error is None:
                 try:
+                    # in the heavy pool (a calibration can take a while), cached by inputs
+                    args = (*values.values(), cap, bool(calibrate))
                     if register_size.strip() or register_false_flags.strip():
-                        from ..program import register_from_form
-                        res, register = register_from_form(values, register_size,
-                                                           register_false_flags, cap,
-                                                           bool(calibrate))
+                        from ..heavy_jobs import register_design_job
+                        reg_args = (values, register_size, register_false_flags, cap,
+                                    bool(calibrate))
+                        result, register = await run_heavy(
+                            request.app.state, register_design_job, *reg_args,
+                            key=("register", *args, register_size, register_false_flags))
                     else:
-                        res = design(**values, max_units=cap, calibrate=bool(calibrate))
-                    result = res.to_dict()
+                        result = await run_heavy(request.app.state, design_job, *args,
+                                                 key=("design", *args))
                 except PlanInputError as exc:
                     error = f"{exc.argument}: {exc}"
                 except ValueError as exc:

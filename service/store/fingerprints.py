@@ -1,0 +1,21 @@
+"""Fingerprints of what a cached result was computed from (see :mod:`service.heavy`)."""
+from __future__ import annotations
+
+
+def cycle_fingerprint(store, facility_id: str, cycle: int) -> tuple | None:
+    """A value that changes whenever the case file of the cycle could change, or None if the
+    cycle does not exist.
+
+    It is the cycle's maintained state (status, counts, decision, last receipt, record count
+    — a void changes the count and the state), the facility's name, and the newest entry of
+    the action log for the cycle: a void, a finding or any manual action on the cycle logs
+    one. Two indexed lookups; no scan of the records.
+    """
+    rows = store.read(
+        "SELECT c.status, c.units, c.nonconforming, c.decided_seq, c.closed_seq, "
+        "c.last_record_at, c.record_count, f.name, "
+        "(SELECT MAX(a.id) FROM actions a WHERE a.facility_id = c.facility_id "
+        " AND a.cycle = c.cycle) AS last_action "
+        "FROM cycles c JOIN facilities f ON f.facility_id = c.facility_id "
+        "WHERE c.facility_id = ? AND c.cycle = ?", (facility_id, cycle))
+    return tuple(rows[0].values()) if rows else None
