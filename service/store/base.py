@@ -19,6 +19,7 @@ import sqlite_utils
 from .common import rows_of
 from .group_commit import GroupCommitter
 from .migrations import migrate
+from .writer_lock import WriterLock
 
 
 class StoreBase:
@@ -29,6 +30,7 @@ class StoreBase:
         self.path.parent.mkdir(parents=True, exist_ok=True)
         self._local = threading.local()
         self._writer = threading.Lock()
+        self._file_lock = WriterLock(self.path)     # the queue of writers across processes
         self._committer = GroupCommitter(self._commit_group, on_exit=self._close_connection)
 
     # -- connections and transactions ------------------------------------
@@ -49,7 +51,8 @@ class StoreBase:
 
         Threads of this process queue on a lock first: SQLite's own busy handler sleeps in
         steps of milliseconds, which would waste most of the time when several request
-        threads want to write at once. Other processes still wait on busy_timeout.
+        threads want to write at once. Processes then queue on a file lock
+        (:mod:`.writer_lock`), which wakes the next writer as soon as the last one commits.
         """
         with self._writer, self._transaction() as conn:
             yield conn
@@ -58,13 +61,14 @@ class StoreBase:
     def _transaction(self):
         """BEGIN IMMEDIATE ... COMMIT on this thread's connection; the caller holds _writer."""
         conn = self._conn()
-        conn.execute("BEGIN IMMEDIATE")
-        try:
-            yield conn
-        except BaseException:
-            conn.execute("ROLLBACK")
-            raise
-        conn.execute("COMMIT")
+        with self._file_lock:
+            conn.execute("BEGIN IMMEDIATE")
+            try:
+                yield conn
+            except BaseException:
+                conn.execute("ROLLBACK")
+                raise
+            conn.execute("COMMIT")
 
     def read(self, sql: str, params=()) -> list[dict]:
         return rows_of(self._conn().execute(sql, params))
@@ -73,6 +77,7 @@ class StoreBase:
         """Stop the writer thread (after what is queued) and close this thread's connection."""
         self._committer.stop()
         self._close_connection()
+        self._file_lock.close()
 
     def _close_connection(self) -> None:
         conn = getattr(self._local, "conn", None)
