@@ -8,6 +8,7 @@ from reportlab.lib import colors
 from reportlab.lib.pagesizes import A4
 from reportlab.lib.styles import ParagraphStyle, getSampleStyleSheet
 from reportlab.lib.units import mm
+from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import (Image, KeepTogether, PageBreak, Paragraph, SimpleDocTemplate,
                                 Spacer, Table, TableStyle)
 
@@ -51,6 +52,51 @@ def _grid(rows, widths, header=True, font=8):
                   ("FONTNAME", (0, 0), (-1, 0), "Helvetica-Bold")]
     table.setStyle(TableStyle(style))
     return table
+
+
+RECORD_HEADER = ["seq", "record id", "observed at", "units", "nc", "inspector", "LLR after",
+                 "status and note"]
+RECORD_WIDTHS = [12 * mm, 30 * mm, 34 * mm, 11 * mm, 9 * mm, 26 * mm, 16 * mm, 40 * mm]
+CHUNK = 200          # records per table: reportlab re-measures a table's rest at each page
+
+
+def _cell(text: str, width: float):
+    """A plain string where it fits its column (cheap: no markup is parsed), else a wrapping
+    Paragraph of the escaped text. Plain strings are drawn as they are, never read as markup."""
+    if stringWidth(text, SMALL.fontName, SMALL.fontSize) <= width - 6:
+        return text
+    return _p(_t(text), SMALL)
+
+
+def record_tables(records: list[dict]) -> list:
+    """The records as tables of at most CHUNK rows each, so the time to lay them out grows
+    linearly with the number of records (one long table costs the square of it: reportlab
+    splits it page by page, measuring the whole rest every time)."""
+    out = []
+    w = RECORD_WIDTHS
+    for start in range(0, max(len(records), 1), CHUNK):
+        rows = [list(RECORD_HEADER)]
+        for r in records[start:start + CHUNK]:
+            status = ("void: " + str(r["void_reason"]) + f" ({r['voided_by']})" if r["void"]
+                      else ("evidence" if r["evidence"] else "after decision"))
+            texts = [str(r["seq"]), str(r["record_id"]), str(r["observed_at"]), str(r["units"]),
+                     str(r["nonconforming"]), "-" if r["inspector"] is None
+                     else str(r["inspector"]), _fmt(r["llr_after"]), status]
+            if r["void"]:
+                cells = [_p(f"<strike>{_t(c)}</strike>", SMALL) for c in texts[:-1]]
+                last = _t(status)
+            else:
+                cells = [_cell(c, w[i]) for i, c in enumerate(texts[:-1])]
+                last = None if not r["note"] else _t(status)
+            if r["note"]:
+                cells.append(_p(last + "<br/>note: " + _t(r["note"]), SMALL))
+            elif last is not None:
+                cells.append(_p(last, SMALL))
+            else:
+                cells.append(_cell(status, w[-1]))
+            rows.append(cells)
+        out.append(_grid(rows, w, font=SMALL.fontSize))
+    return out
 
 
 def render_pdf(cf: dict) -> bytes:
@@ -114,23 +160,7 @@ def render_pdf(cf: dict) -> bytes:
                     width=178 * mm, height=71 * mm),
               PageBreak(),
               _p("Every record of the cycle, in order of receipt", H2)]
-    rows = [["seq", "record id", "observed at", "units", "nc", "inspector", "LLR after",
-             "status and note"]]
-    for r in cf["records"]:
-        cells = [str(r["seq"]), _t(r["record_id"]), _t(r["observed_at"]), str(r["units"]),
-                 str(r["nonconforming"]), _t(r["inspector"]), _fmt(r["llr_after"]),
-                 "void: " + _t(r["void_reason"]) + f" ({_t(r['voided_by'])})" if r["void"]
-                 else ("evidence" if r["evidence"] else "after decision")]
-        if r["note"]:
-            cells[-1] += "<br/>note: " + _t(r["note"])
-        if r["void"]:
-            cells = [_p(f"<strike>{c}</strike>", SMALL) for c in cells[:-1]] + \
-                    [_p(cells[-1], SMALL)]
-        else:
-            cells = [_p(c, SMALL) for c in cells]
-        rows.append(cells)
-    story.append(_grid(rows, [12 * mm, 30 * mm, 34 * mm, 11 * mm, 9 * mm, 26 * mm, 16 * mm,
-                              40 * mm]))
+    story += record_tables(cf["records"])
     from .draws_pdf import draws_story
     story += draws_story(cf.get("draws"))
     story += [_p("Action log of the cycle", H2)]
