@@ -20,6 +20,7 @@ from __future__ import annotations
 import argparse
 import http.client
 import json
+import multiprocessing
 import os
 import shutil
 import signal
@@ -30,6 +31,7 @@ import sys
 import tempfile
 import threading
 import time
+import uuid
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -56,11 +58,33 @@ beta = 0.000001
 [service]
 rate_per_s = 0
 max_body_bytes = 20000000
+[plans.cap1000]
+p0 = 0.45
+p1 = 0.55
+alpha = 0.000001
+beta = 0.000001
+max_units = 1000
+[plans.cap2000]
+p0 = 0.45
+p1 = 0.55
+alpha = 0.000001
+beta = 0.000001
+max_units = 2000
+[plans.cap10000]
+p0 = 0.45
+p1 = 0.55
+alpha = 0.000001
+beta = 0.000001
+max_units = 10000
+[plans.cap20000]
+p0 = 0.45
+p1 = 0.55
+alpha = 0.000001
+beta = 0.000001
+max_units = 20000
 [schedule]
 enabled = false
 """
-TARGETS = {"single_ratio": 0.5, "batch_rps": 50_000, "history_ratio": 1.2,
-           "replay_rps": 500_000}
 
 
 def free_port() -> int:
@@ -86,12 +110,39 @@ def body(tag: str, i: int, fid: str = "B0") -> dict:
             "units": 1, "nonconforming": i % 2, "inspector": "bench"}
 
 
-def start_service(db: Path, config: Path, port: int) -> subprocess.Popen:
-    """`seqaudit serve` (uvicorn, one worker) on the bench database, in its own session."""
+def _split_cpus() -> tuple[set[int] | None, set[int] | None, str]:
+    """Server CPUs, client CPUs and what was done: the client process is pinned to the upper
+    half of the CPUs this process may use, the servers (and their heavy workers) to the
+    lower half; with a single CPU nothing is pinned."""
+    try:
+        cpus = sorted(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        return None, None, "not pinned (no sched_setaffinity on this system)"
+    if len(cpus) < 2:
+        return None, None, "not pinned (one CPU)"
+    half = len(cpus) // 2
+    server, client = set(cpus[:half]), set(cpus[half:])
+    return server, client, (f"servers pinned to CPU {sorted(server)}, client process to CPU "
+                            f"{sorted(client)} (os.sched_setaffinity)")
+
+
+SERVER_CPUS, CLIENT_CPUS, PINNING = _split_cpus()
+
+
+def pin(cpus):
+    """A preexec_fn that pins the child (and everything it starts) to ``cpus``."""
+    if cpus is None:
+        return None
+    return lambda: os.sched_setaffinity(0, cpus)
+
+
+def start_service(db: Path, config: Path, port: int, workers: int = 1) -> subprocess.Popen:
+    """`seqaudit serve` (uvicorn) on the bench database, in its own session, pinned."""
     return subprocess.Popen([sys.executable, "-m", "service.cli", "serve", "--db", str(db),
-                             "--config", str(config), "--port", str(port), "--workers", "1"],
+                             "--config", str(config), "--port", str(port), "--workers",
+                             str(workers)],
                             env=_env(), stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-                            start_new_session=True)
+                            start_new_session=True, preexec_fn=pin(SERVER_CPUS))
 
 
 def _env() -> dict:
@@ -102,21 +153,38 @@ def _env() -> dict:
 
 def stop(proc: subprocess.Popen) -> None:
     os.killpg(proc.pid, signal.SIGTERM)
-    proc.wait(20)
+    proc.wait(30)
 
 
-def hammer(url: str, key: str, count: int, concurrency: int, tag: str) -> float:
-    """Requests per second of `count` single-record POSTs from `concurrency` threads."""
+def register(url: str, admin: str, facilities: list[tuple[str, str]]) -> None:
+    for fid, plan in facilities:
+        httpx2.post(url + "/v1/facilities", headers={"Authorization": f"Bearer {admin}"},
+                    json={"facility_id": fid, "name": "bench", "plan": plan},
+                    timeout=30).raise_for_status()
+
+
+def _hammer(url: str, path: str, key: str, count: int, concurrency: int, tag: str) -> dict:
+    """In the client process: ``count`` single-record POSTs from ``concurrency`` threads,
+    each over one keep-alive http.client connection; rate and latency percentiles."""
     per = count // concurrency
-    errors = []
+    host, port = url.removeprefix("http://").split(":")
+    errors, latencies = [], []
+    headers = {"Authorization": f"Bearer {key}", "Content-Type": "application/json"}
 
     def worker(c):
-        with httpx2.Client(base_url=url, headers={"Authorization": f"Bearer {key}"},
-                           timeout=30) as client:
-            for i in range(per):
-                r = client.post("/v1/records", json=body(f"{tag}{c}", i))
-                if r.status_code != 201:
-                    errors.append(r.text)
+        conn = http.client.HTTPConnection(host, int(port), timeout=120)
+        mine = []
+        for i in range(per):
+            payload = orjson.dumps(body(f"{tag}-{c}", i))
+            t0 = time.perf_counter()
+            conn.request("POST", path, body=payload, headers=headers)
+            got = conn.getresponse()
+            answer = got.read()
+            mine.append(time.perf_counter() - t0)
+            if got.status != 201:
+                errors.append(f"{got.status}: {answer[:200]!r}")
+        conn.close()
+        latencies.extend(mine)
 
     threads = [threading.Thread(target=worker, args=(c,)) for c in range(concurrency)]
     start = time.perf_counter()
@@ -127,10 +195,50 @@ def hammer(url: str, key: str, count: int, concurrency: int, tag: str) -> float:
     took = time.perf_counter() - start
     if errors:
         raise RuntimeError(errors[0])
-    return per * concurrency / took
+    latencies.sort()
+    return {"rps": per * concurrency / took, "p50_ms": 1e3 * latencies[len(latencies) // 2],
+            "p99_ms": 1e3 * latencies[int(len(latencies) * 0.99)]}
 
 
-def single_record(folder: Path, config: Path, count: int, concurrency: int) -> dict:
+def _client_main(conn, cpus) -> None:
+    if cpus is not None:
+        os.sched_setaffinity(0, cpus)
+    while True:
+        job = conn.recv()
+        if job is None:
+            return
+        try:
+            conn.send((True, _hammer(*job)))
+        except Exception as exc:  # noqa: BLE001 - reported to the bench
+            conn.send((False, repr(exc)))
+
+
+class Client:
+    """The load generator: one process of its own, pinned to the client CPUs."""
+
+    def __init__(self):
+        ctx = multiprocessing.get_context("spawn")
+        self._conn, child = ctx.Pipe()
+        self._proc = ctx.Process(target=_client_main, args=(child, CLIENT_CPUS), daemon=True)
+        self._proc.start()
+
+    def run(self, url: str, path: str, key: str, count: int, concurrency: int,
+            tag: str) -> dict:
+        self._conn.send((url, path, key, count, concurrency, tag))
+        ok, out = self._conn.recv()
+        if not ok:
+            raise RuntimeError(out)
+        return out
+
+    def close(self) -> None:
+        self._conn.send(None)
+        self._proc.join(10)
+
+
+def single_record(folder: Path, config: Path, count: int, concurrency: int,
+                  client: "Client") -> dict:
+    """Our record route against the bare ``def`` and ``async def`` ceilings; the client runs
+    in its own process (pinned away from the servers where the machine allows)."""
     db = folder / "single.db"
     store = Store(db)
     store.migrate()
@@ -141,35 +249,269 @@ def single_record(folder: Path, config: Path, count: int, concurrency: int) -> d
     bare = subprocess.Popen([sys.executable, "-m", "uvicorn", "_bare_app:app", "--port",
                              str(bare_port), "--log-level", "warning", "--no-access-log"],
                             cwd=ROOT / "scripts", env=_env(), stdout=subprocess.DEVNULL,
-                            stderr=subprocess.DEVNULL, start_new_session=True)
+                            stderr=subprocess.DEVNULL, start_new_session=True,
+                            preexec_fn=pin(SERVER_CPUS))
     try:
         url, bare_url = f"http://127.0.0.1:{port}", f"http://127.0.0.1:{bare_port}"
         wait_up(url + "/healthz")
         wait_up(bare_url + "/docs")
-        httpx2.post(url + "/v1/facilities", headers={"Authorization": f"Bearer {admin}"},
-                    json={"facility_id": "B0", "name": "bench", "plan": "balanced"},
-                    timeout=10).raise_for_status()
-        hammer(url, field, 200, concurrency, "warm")
-        hammer(bare_url, field, 200, concurrency, "warm")
-        rates = {"ours": [], "bare": []}
-        for round_no in range(3):   # interleaved, so drift of the machine hits both
-            rates["bare"].append(hammer(bare_url, field, count, concurrency, f"b{round_no}"))
-            rates["ours"].append(hammer(url, field, count, concurrency, f"o{round_no}"))
+        register(url, admin, [("B0", "balanced")])
+        targets = {"ours": (url, "/v1/records"), "bare": (bare_url, "/v1/records"),
+                   "bare_async": (bare_url, "/async/v1/records")}
+        for name, (u, path) in targets.items():
+            client.run(u, path, field, 200, concurrency, f"warm{name}")
+        runs = {name: [] for name in targets}
+        for round_no in range(3):   # interleaved, so drift of the machine hits all alike
+            for name, (u, path) in targets.items():
+                runs[name].append(client.run(u, path, field, count, concurrency,
+                                             f"{name}{round_no}"))
     finally:
         stop(ours)
         stop(bare)
-    ours_rps, bare_rps = max(rates["ours"]), max(rates["bare"])
-    return {"ours_rps": ours_rps, "bare_rps": bare_rps, "ratio": ours_rps / bare_rps,
-            "requests": count, "concurrency": concurrency}
+    best = {name: max(r["rps"] for r in rs) for name, rs in runs.items()}
+    return {"ours_rps": best["ours"], "bare_rps": best["bare"],
+            "bare_async_rps": best["bare_async"], "ratio": best["ours"] / best["bare"],
+            "ratio_async": best["ours"] / best["bare_async"], "requests": count,
+            "concurrency": concurrency}
 
 
-def monitor_for(db: Path) -> Monitor:
-    settings = load_settings(db_path=db)
+def monitor_for(db: Path, config: Path | None = None) -> Monitor:
+    settings = load_settings(config, db_path=db) if config else load_settings(db_path=db)
     plans = dict(settings.plans)
     plans["balanced"] = PlanSpec(name="balanced", p0=0.45, p1=0.55, alpha=1e-6, beta=1e-6)
     store = Store(db)
     store.migrate()
     return Monitor(store=store, plans=PlanBook(plans), max_batch=1000)
+
+
+ACTOR = ("bench", "admin")
+
+
+def two_workers(folder: Path, config: Path, count: int, concurrency: int,
+                client: Client, rounds: int = 3) -> dict:
+    """Single-record ingest against `serve --workers 2` and `--workers 1` (each on its own
+    database, both up at once, rounds interleaved): throughput and p99 latency."""
+    servers, runs = {}, {1: [], 2: []}
+    try:
+        for w in (1, 2):
+            db = folder / f"workers{w}.db"
+            store = Store(db)
+            store.migrate()
+            field = store.add_key("field", "bench tablet", "2026-01-01T00:00:00Z")[1]
+            admin = store.add_key("admin", "bench admin", "2026-01-01T00:00:00Z")[1]
+            port = free_port()
+            servers[w] = (start_service(db, config, port, workers=w),
+                          f"http://127.0.0.1:{port}", field)
+            wait_up(servers[w][1] + "/healthz")
+            register(servers[w][1], admin, [("B0", "balanced")])
+            client.run(servers[w][1], "/v1/records", field, 400, concurrency, f"warm{w}")
+        for r in range(rounds):
+            for w in (1, 2):
+                _, url, field = servers[w]
+                runs[w].append(client.run(url, "/v1/records", field, count, concurrency,
+                                          f"w{w}r{r}"))
+    finally:
+        for proc, _, _ in servers.values():
+            stop(proc)
+    best = {w: max(rs, key=lambda x: x["rps"]) for w, rs in runs.items()}
+    p99 = {w: min(x["p99_ms"] for x in rs) for w, rs in runs.items()}
+    return {"one_rps": best[1]["rps"], "two_rps": best[2]["rps"], "one_p99_ms": p99[1],
+            "two_p99_ms": p99[2], "ratio_rps": best[2]["rps"] / best[1]["rps"],
+            "ratio_p99": p99[2] / p99[1], "rounds": runs}
+
+
+def casefile_db(folder: Path, config: Path, sizes: list[int]) -> tuple[Path, dict[int, str]]:
+    """A database with one cycle per size, decided at its cap of that many units by
+    that many one-unit records (balanced outcomes: the cut rule decides), plus B0."""
+    db = folder / "casefile.db"
+    m = monitor_for(db, config)
+    m.register_facility(FacilityCreate(facility_id="B0", name="bench", plan="balanced"), ACTOR)
+    fids = {}
+    for size in sizes:
+        fid = fids[size] = f"CF{size}"
+        m.register_facility(FacilityCreate(facility_id=fid, name=f"case file {size}",
+                                           plan=f"cap{size}"), ACTOR)
+        for start in range(0, size, 1000):
+            m.post_records({"records": [body(fid, i, fid) for i in range(start, start + 1000)]},
+                           ACTOR, with_state=False)
+        assert m.store.facility(fid)["status"] in ("flagged", "cleared")
+    m.store.close()
+    return db, fids
+
+
+def casefile_under_load(db: Path, fid: str, config: Path, count: int, concurrency: int,
+                        client: Client, rounds: int = 3) -> dict:
+    """Single-record ingest alone, and while the server renders the case-file PDF of a
+    10,000-record cycle (a new confidence level each time, so no answer comes from the
+    cache); rounds alternate. Records whether each ingest round lay wholly inside a render."""
+    store = Store(db)
+    field = store.add_key("field", "bench tablet", "2026-01-01T00:00:00Z")[1]
+    analyst = store.add_key("analyst", "bench analyst", "2026-01-01T00:00:00Z")[1]
+    port = free_port()
+    proc = start_service(db, config, port)
+    alone, during, pdf_s, covered = [], [], [], []
+    try:
+        url = f"http://127.0.0.1:{port}"
+        wait_up(url + "/healthz")
+        client.run(url, "/v1/records", field, 400, concurrency, "warm")
+        for r in range(rounds):
+            alone.append(client.run(url, "/v1/records", field, count, concurrency, f"a{r}"))
+            span = {}
+
+            def render(level=0.95 - 0.001 * r):
+                span["start"] = time.perf_counter()
+                got = httpx2.get(f"{url}/v1/facilities/{fid}/cycles/1/casefile.pdf",
+                                 params={"ci_level": level}, timeout=600,
+                                 headers={"Authorization": f"Bearer {analyst}"})
+                span["end"] = time.perf_counter()
+                span["status"] = got.status_code
+
+            t = threading.Thread(target=render)
+            t.start()
+            time.sleep(2.0)                   # the worker is well into the build by now
+            t0 = time.perf_counter()
+            during.append(client.run(url, "/v1/records", field, count, concurrency, f"d{r}"))
+            t1 = time.perf_counter()
+            t.join()
+            if span.get("status") != 200:
+                raise RuntimeError(f"case file answered {span.get('status')}")
+            pdf_s.append(span["end"] - span["start"])
+            covered.append(span["start"] < t0 and t1 < span["end"])
+    finally:
+        stop(proc)
+    a = max(alone, key=lambda x: x["rps"])
+    d = max(during, key=lambda x: x["rps"])
+    a99, d99 = min(x["p99_ms"] for x in alone), min(x["p99_ms"] for x in during)
+    return {"alone_rps": a["rps"], "during_rps": d["rps"], "ratio_rps": d["rps"] / a["rps"],
+            "alone_p99_ms": a99, "during_p99_ms": d99, "ratio_p99": d99 / a99,
+            "pdf_seconds": pdf_s, "ingest_inside_render": covered}
+
+
+def pdf_scaling(db: Path, fids: dict[int, str], rounds: int = 1) -> dict:
+    """Case-file PDF (build and render, as the heavy worker does it) of the 10,000- and
+    20,000-record cycles, timed in this process; best of ``rounds``."""
+    from service.heavy_jobs import casefile_pdf_job
+    times = {size: [] for size in fids}
+    for _ in range(rounds):
+        for size, fid in fids.items():
+            start = time.perf_counter()
+            casefile_pdf_job(str(db), fid, 1, 0.95)
+            times[size].append(time.perf_counter() - start)
+    small, big = sorted(fids)
+    return {"sizes": [small, big], "seconds": {s: min(t) for s, t in times.items()},
+            "ratio": min(times[big]) / min(times[small])}
+
+
+def _uuid_batch(fids: list[str]) -> dict:
+    return {"records": [dict(body("u", k, fids[k % len(fids)]), record_id=str(uuid.uuid4()))
+                        for k in range(1000)]}
+
+
+def random_ids(folder: Path, config: Path, stored: int, batches: int, rounds: int = 3) -> dict:
+    """Batches of 1000 records with random (UUID 4) ids, per-record cost into a database
+    holding ``stored`` records with random ids against an empty one; rounds alternate."""
+    probes = [f"P{k}" for k in range(10)]
+    monitors = {}
+    for name in ("empty", "full"):
+        m = monitors[name] = monitor_for(folder / f"uuid-{name}.db", config)
+        m.store.add_facilities([(fid, "probe", "balanced", m.plans.snapshot("balanced"))
+                                for fid in probes + ["FILL"]], "2026-01-01T00:00:00Z", ACTOR)
+    conn = sqlite3.connect(folder / "uuid-full.db", isolation_level=None)
+    conn.execute("BEGIN")
+    for start in range(0, stored, 100_000):
+        conn.executemany(
+            "INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, observed_utc, "
+            "received_at, units, nonconforming, counted, void) VALUES (?, ?, 'FILL', 1, "
+            "'2026-11-30T10:00:00Z', '2026-11-30T10:00:00.000000Z', "
+            "'2026-11-30T10:00:00.000000Z', 1, ?, 1, 0)",
+            [(i + 1, str(uuid.uuid4()), i % 2) for i in range(start, min(start + 100_000,
+                                                                        stored))])
+    conn.execute("COMMIT")
+    conn.close()
+    cost = {"empty": [], "full": []}
+    for name, m in monitors.items():       # warm both
+        m.post_records(_uuid_batch(probes), ACTOR, with_state=False)
+    for _ in range(rounds):
+        for name, m in monitors.items():
+            payloads = [_uuid_batch(probes) for _ in range(batches)]
+            start = time.perf_counter()
+            for p in payloads:
+                m.post_records(p, ACTOR, with_state=False)
+            cost[name].append((time.perf_counter() - start) / (1000 * batches))
+    for m in monitors.values():
+        m.store.close()
+    empty, full = min(cost["empty"]), min(cost["full"])
+    return {"stored": stored, "empty_us": 1e6 * empty, "full_us": 1e6 * full,
+            "ratio": full / empty}
+
+
+def many_facilities(folder: Path, config: Path, batches: int, rounds: int = 3) -> dict:
+    """Per-record cost of batches of 1000 spread over 1000 facilities against batches
+    spread over 10; rounds alternate."""
+    m = monitor_for(folder / "many.db", config)
+    fids = [f"M{k:04d}" for k in range(1000)]
+    m.store.add_facilities([(fid, "many", "balanced", m.plans.snapshot("balanced"))
+                            for fid in fids], "2026-01-01T00:00:00Z", ACTOR)
+    spreads = {"10": fids[:10], "1000": fids}
+    cost = {k: [] for k in spreads}
+    for r in range(rounds + 1):                 # the first round warms up
+        for name, over in spreads.items():
+            payloads = [{"records": [body(f"m{name}-{r}-{j}", k, over[k % len(over)])
+                                     for k in range(1000)]} for j in range(batches)]
+            start = time.perf_counter()
+            for p in payloads:
+                m.post_records(p, ACTOR, with_state=False)
+            if r:
+                cost[name].append((time.perf_counter() - start) / (1000 * batches))
+    m.store.close()
+    few, many = min(cost["10"]), min(cost["1000"])
+    return {"ten_us": 1e6 * few, "thousand_us": 1e6 * many, "ratio": many / few}
+
+
+def listing(folder: Path, config: Path, sizes=(10_000, 100_000), repeats: int = 15) -> dict:
+    """`GET /v1/facilities` (first page, default order) and the dashboard overview (first
+    page, default order: closest to a boundary) at each number of facilities, in process
+    (TestClient); the median of ``repeats`` after warming up."""
+    from fastapi.testclient import TestClient
+
+    from service.api import create_app
+    out = {}
+    for n in sizes:
+        db = folder / f"list{n}.db"
+        m = monitor_for(db, config)
+        snap = m.plans.snapshot("balanced")
+        for start in range(0, n, 10_000):
+            m.store.add_facilities([(f"L{k:06d}", f"agency {k}", "balanced", snap)
+                                    for k in range(start, min(start + 10_000, n))],
+                                   "2026-01-01T00:00:00Z", ACTOR)
+        # some facilities have records, so their positions differ
+        m.post_records({"records": [body(f"l{n}", k, f"L{k * (n // 1000):06d}")
+                                    for k in range(1000)]}, ACTOR, with_state=False)
+        analyst = m.store.add_key("analyst", "bench analyst", "2026-01-01T00:00:00Z")[1]
+        m.store.close()
+        app = create_app(load_settings(config, db_path=db))
+        times = {"api": [], "overview": []}
+        with TestClient(app, base_url="http://127.0.0.1") as c:
+            form = c.get("/ui/signin")
+            token = form.text.split('name="csrf" value="')[1].split('"')[0]
+            c.post("/ui/signin", data={"key": analyst, "csrf": token}, follow_redirects=False)
+            auth = {"Authorization": f"Bearer {analyst}"}
+            for i in range(repeats + 3):
+                t0 = time.perf_counter()
+                r1 = c.get("/v1/facilities", params={"limit": 50}, headers=auth)
+                t1 = time.perf_counter()
+                r2 = c.get("/ui/overview")
+                t2 = time.perf_counter()
+                assert r1.status_code == 200 and r1.json()["total"] == n, r1.text[:200]
+                assert r2.status_code == 200, r2.status_code
+                if i >= 3:
+                    times["api"].append(t1 - t0)
+                    times["overview"].append(t2 - t1)
+        out[n] = {k: 1e3 * sorted(v)[len(v) // 2] for k, v in times.items()}
+    small, big = sizes
+    return {"sizes": list(sizes), "ms": out,
+            "ratio_api": out[big]["api"] / out[small]["api"],
+            "ratio_overview": out[big]["overview"] / out[small]["overview"]}
 
 
 def batched(folder: Path, config: Path, batches: int, rounds: int = 3) -> dict:
@@ -311,47 +653,159 @@ def replay(folder: Path, records: int, facilities: int) -> dict:
             "records_per_s": records / min(times)}
 
 
+# Each target: (section, value key, "min" or "max", bound, label, existing target?)
+TARGETS = {
+    "single_ratio": ("single", "ratio", "min", 0.5, "single-record POST / def ceiling", True),
+    "batch_rps": ("batch", "records_per_s", "min", 50_000, "batched ingest, records/s", True),
+    "history_ratio": ("history", "ratio", "max", 1.2, "100,000 earlier records vs none", True),
+    "replay_rps": ("replay", "records_per_s", "min", 500_000, "replay, records/s", True),
+    "casefile_rps": ("casefile", "ratio_rps", "min", 0.7,
+                     "ingest during a 10k case file / alone", False),
+    "casefile_p99": ("casefile", "ratio_p99", "max", 3.0,
+                     "p99 during a 10k case file / alone", False),
+    "workers_rps": ("workers", "ratio_rps", "min", 1.0, "2 workers / 1, req/s", False),
+    "workers_p99": ("workers", "ratio_p99", "max", 2.0, "2 workers / 1, p99", False),
+    "random_ids": ("random_ids", "ratio", "max", 1.3, "random ids, 1M stored / empty", False),
+    "many_facilities": ("many", "ratio", "max", 1.5, "batch over 1000 facilities / 10",
+                        False),
+    "listing_api": ("listing", "ratio_api", "max", 2.0, "GET /v1/facilities 100k / 10k",
+                    False),
+    "listing_overview": ("listing", "ratio_overview", "max", 2.0, "overview 100k / 10k",
+                         False),
+    "pdf_scaling": ("pdf", "ratio", "max", 2.2, "case-file PDF 20k / 10k records", False),
+}
+SECTIONS = ("single", "batch", "history", "replay", "casefile", "pdf", "workers",
+            "random_ids", "many", "listing")
+
+
+def one_run(args, folder: Path, config: Path, client: Client) -> dict:
+    q, only = args.quick, set(args.only or SECTIONS)
+    cf_sizes = [1000, 2000] if q else [10_000, 20_000]
+    res = {}
+    if "single" in only:
+        res["single"] = single_record(folder, config, 400 if q else 2000, args.concurrency,
+                                      client)
+    if "batch" in only:
+        res["batch"] = batched(folder, config, 5 if q else 10, rounds=2 if q else 3)
+    if "history" in only:
+        res["history"] = history(folder, 10_000 if q else 100_000, 100 if q else 200, rounds=9)
+    if "replay" in only:
+        res["replay"] = replay(folder, 100_000 if q else 1_000_000, 100 if q else 1000)
+    if only & {"casefile", "pdf"}:
+        db, fids = casefile_db(folder, config, cf_sizes)
+        if "pdf" in only:
+            res["pdf"] = pdf_scaling(db, fids, rounds=args.pdf_rounds)
+        if "casefile" in only:
+            res["casefile"] = casefile_under_load(db, fids[cf_sizes[0]], config,
+                                                  400 if q else 2000, args.concurrency, client)
+    if "workers" in only:
+        res["workers"] = two_workers(folder, config, 400 if q else 2000, args.concurrency,
+                                     client)
+    if "random_ids" in only:
+        res["random_ids"] = random_ids(folder, config, 100_000 if q else 1_000_000,
+                                       2 if q else 5)
+    if "many" in only:
+        res["many"] = many_facilities(folder, config, 2 if q else 5)
+    if "listing" in only:
+        res["listing"] = listing(folder, config, (1000, 10_000) if q else (10_000, 100_000))
+    return res
+
+
+def verdicts(res: dict) -> dict[str, tuple[float, bool]]:
+    out = {}
+    for name, (section, key, kind, bound, _, _) in TARGETS.items():
+        if section in res:
+            value = res[section][key]
+            out[name] = (value, value >= bound if kind == "min" else value <= bound)
+    return out
+
+
+def print_run(number: int, res: dict) -> None:
+    print(f"\nrun {number}: {PINNING}")
+    s = res.get("single")
+    if s:
+        print(f"  single-record POST (c={s['concurrency']}): ours {s['ours_rps']:,.0f} req/s; "
+              f"def ceiling {s['bare_rps']:,.0f}; async def ceiling {s['bare_async_rps']:,.0f} "
+              f"(ours / async ceiling {s['ratio_async']:.2f}, not a target)")
+    b = res.get("batch")
+    if b:
+        print(f"  batched: field key {b['records_per_s']:,.0f}/s, analyst key "
+              f"{b['analyst_records_per_s']:,.0f}/s, raw executemany "
+              f"{b['raw_executemany_per_s']:,.0f}/s")
+    c = res.get("casefile")
+    if c:
+        print(f"  ingest alone {c['alone_rps']:,.0f} req/s p99 {c['alone_p99_ms']:.1f} ms; "
+              f"during a case file {c['during_rps']:,.0f} req/s p99 {c['during_p99_ms']:.1f} ms;"
+              f" PDFs took {', '.join(f'{x:.1f}' for x in c['pdf_seconds'])} s; ingest inside "
+              f"the render: {c['ingest_inside_render']}")
+    p = res.get("pdf")
+    if p:
+        print("  case-file PDF: " + ", ".join(f"{k:,} records {v:.1f} s"
+                                              for k, v in p["seconds"].items()))
+    w = res.get("workers")
+    if w:
+        print(f"  1 worker {w['one_rps']:,.0f} req/s p99 {w['one_p99_ms']:.1f} ms; 2 workers "
+              f"{w['two_rps']:,.0f} req/s p99 {w['two_p99_ms']:.1f} ms")
+    u = res.get("random_ids")
+    if u:
+        print(f"  random ids: {u['empty_us']:.1f} us/record empty, {u['full_us']:.1f} us/record "
+              f"with {u['stored']:,} stored")
+    m = res.get("many")
+    if m:
+        print(f"  batch over 10 facilities {m['ten_us']:.1f} us/record, over 1000 "
+              f"{m['thousand_us']:.1f} us/record")
+    li = res.get("listing")
+    if li:
+        print("  listing: " + "; ".join(f"{n:,} facilities: API {v['api']:.1f} ms, overview "
+                                        f"{v['overview']:.1f} ms" for n, v in li["ms"].items()))
+    print(f"  {'target':<44}{'value':>12}  bound")
+    for name, (value, ok) in verdicts(res).items():
+        _, _, kind, bound, label, _ = TARGETS[name]
+        print(f"  {label:<44}{value:>12,.2f}  {'>=' if kind == 'min' else '<='} {bound:,} "
+              f"{'met' if ok else 'NOT met'}")
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--quick", action="store_true", help="smaller sizes, for a smoke run")
     ap.add_argument("--concurrency", type=int, default=8)
+    ap.add_argument("--runs", type=int, default=1, help="whole runs, each printed")
+    ap.add_argument("--only", nargs="*", choices=SECTIONS, help="just these sections")
+    ap.add_argument("--pdf-rounds", type=int, default=1)
     args = ap.parse_args()
-    q = args.quick
-    folder = Path(tempfile.mkdtemp(prefix="seqaudit-bench-ingest-"))
-    config = folder / "bench.toml"
-    config.write_text(CONFIG)
+    if CLIENT_CPUS is not None:
+        os.sched_setaffinity(0, CLIENT_CPUS)     # in-process clients and timings too
+    client = Client()
+    runs = []
     try:
-        results = {
-            "single": single_record(folder, config, 400 if q else 2000, args.concurrency),
-            "batch": batched(folder, config, 5 if q else 10, rounds=2 if q else 3),
-            "history": history(folder, 10_000 if q else 100_000, 100 if q else 200, rounds=9),
-            "replay": replay(folder, 100_000 if q else 1_000_000, 100 if q else 1000),
-        }
+        for number in range(1, args.runs + 1):
+            folder = Path(tempfile.mkdtemp(prefix="seqaudit-bench-ingest-"))
+            config = folder / "bench.toml"
+            config.write_text(CONFIG)
+            try:
+                res = one_run(args, folder, config, client)
+            finally:
+                shutil.rmtree(folder, ignore_errors=True)
+            runs.append(res)
+            print_run(number, res)
+            print(json.dumps({"run": number, "results": res}, default=str))
     finally:
-        shutil.rmtree(folder, ignore_errors=True)
-    s, b, h, r = (results[k] for k in ("single", "batch", "history", "replay"))
-    checks = {"single_ratio": s["ratio"] >= TARGETS["single_ratio"],
-              "batch_rps": b["records_per_s"] >= TARGETS["batch_rps"],
-              "history_ratio": h["ratio"] <= TARGETS["history_ratio"],
-              "replay_rps": r["records_per_s"] >= TARGETS["replay_rps"]}
-    yes = lambda ok: "met" if ok else "NOT met"
-    print(f"{'measure':<52}{'value':>14}{'ceiling / base':>16}{'ratio':>8}  target")
-    print(f"{'single-record POST, req/s (c=' + str(s['concurrency']) + ')':<52}"
-          f"{s['ours_rps']:>14,.0f}{s['bare_rps']:>16,.0f}{s['ratio']:>8.2f}  >= 0.5 "
-          f"{yes(checks['single_ratio'])}")
-    print(f"{'batched ingest (1000/request), records/s':<52}{b['records_per_s']:>14,.0f}"
-          f"{b['raw_executemany_per_s']:>16,.0f}{b['ratio']:>8.2f}  >= 50,000/s "
-          f"{yes(checks['batch_rps'])}")
-    print(f"{'  the same, analyst key (answer carries states)':<52}"
-          f"{b['analyst_records_per_s']:>14,.0f}{'':>16}{'':>8}  (not a target)")
-    print(f"{'per-record ms, ' + format(h['earlier_records'], ',') + ' earlier vs none':<52}"
-          f"{h['with_history_ms']:>14.3f}{h['empty_ms']:>16.3f}{h['ratio']:>8.2f}  <= 1.2 "
-          f"{yes(checks['history_ratio'])}")
-    print(f"{'replay of ' + format(r['records'], ',') + ' records, ' + str(r['facilities']) + ' facilities, rec/s':<52}"
-          f"{r['records_per_s']:>14,.0f}{'':>16}{'':>8}  >= 500,000/s "
-          f"{yes(checks['replay_rps'])}")
-    print(json.dumps({"results": results, "targets": TARGETS, "met": checks}))
-    return 0 if all(checks.values()) else 1
+        client.close()
+    # a target is missed when it fails in more than one run in five (4 of 5 must meet it)
+    allowed = args.runs // 5
+    print(f"\nover {args.runs} run(s) ({PINNING}); a target may fail in at most {allowed}:")
+    failed = False
+    for name, (section, key, kind, bound, label, _) in TARGETS.items():
+        got = [verdicts(r)[name] for r in runs if name in verdicts(r)]
+        if not got:
+            continue
+        values = [v for v, _ in got]
+        misses = sum(1 for _, ok in got if not ok)
+        bad = misses > allowed
+        failed |= bad
+        print(f"  {label:<44} {min(values):>10,.2f} .. {max(values):>10,.2f}  met in "
+              f"{len(got) - misses}/{len(got)}  {'NOT met' if bad else 'met'}")
+    return 1 if failed else 0
 
 
 if __name__ == "__main__":

@@ -140,8 +140,7 @@ class HeavyPool:
         ctx.set_forkserver_preload(_PRELOAD)
         self._slots = [_Slot(ctx, s.nice) for _ in range(max(1, s.workers))]
         self._free = list(self._slots)
-        self._threads = ThreadPoolExecutor(max_workers=len(self._slots),
-                                           thread_name_prefix="seqaudit-heavy")
+        self._threads: ThreadPoolExecutor | None = None
         self._waiting: list[asyncio.Future] = []
         self._admitted = 0                     # running + waiting jobs
         self._running: dict[Hashable, asyncio.Future] = {}
@@ -194,7 +193,11 @@ class HeavyPool:
         return len(gone)
 
     def close(self) -> None:
-        self._threads.shutdown(wait=False, cancel_futures=True)
+        """Stop the worker processes (the app's lifespan ends); the pool starts them again
+        if it is used after this (a test client may enter the lifespan more than once)."""
+        if self._threads is not None:
+            self._threads.shutdown(wait=False, cancel_futures=True)
+            self._threads = None
         for slot in self._slots:
             slot.stop()
 
@@ -233,6 +236,9 @@ class HeavyPool:
     async def _on_slot(self, slot: _Slot, payload: bytes, key, timeout_s: float):
         loop = asyncio.get_running_loop()
         start = time.monotonic()
+        if self._threads is None:
+            self._threads = ThreadPoolExecutor(max_workers=len(self._slots),
+                                               thread_name_prefix="seqaudit-heavy")
         call = loop.run_in_executor(self._threads, slot.call, payload)
         try:
             answer, size = await asyncio.wait_for(asyncio.shield(call), timeout_s)

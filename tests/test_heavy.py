@@ -44,6 +44,8 @@ def test_jobs_run_in_another_process_and_errors_cross_intact():
                 await pool.run(fail_with, "plan")
             assert pe.value.argument == "p1"
             assert await pool.run(pid_after, 0) == child     # the same worker, kept alive
+            pool.close()                 # the app's lifespan ended; a new one may begin
+            assert await pool.run(pid_after, 0) not in (child, os.getpid())
         finally:
             pool.close()
     asyncio.run(main())

@@ -22,8 +22,9 @@ async def casefile(request: Request, m: Monitor, kind: str, facility_id: str, cy
     changes (a void, a finding, a later record)."""
     job = casefile_pdf_job if kind == "pdf" else casefile_json_job
     fingerprint = cycle_fingerprint(m.store, facility_id, cycle)
-    key = None if fingerprint is None else (kind, str(m.store.path), facility_id, cycle, level,
-                                            fingerprint)
+    if fingerprint is None or fingerprint[0] not in ("flagged", "cleared"):
+        build_casefile(m.store, facility_id, cycle, level)   # raises 404 / 409 at once
+    key = (kind, str(m.store.path), facility_id, cycle, level, fingerprint)
     return await run_heavy(request.app.state, job, str(m.store.path), facility_id, cycle,
                            level, key=key)
 
