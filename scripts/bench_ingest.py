@@ -408,38 +408,61 @@ def _uuid_batch(fids: list[str]) -> dict:
 
 
 def random_ids(folder: Path, config: Path, stored: int, batches: int, rounds: int = 3) -> dict:
-    """Batches of 1000 records with random (UUID 4) ids, per-record cost into a database
-    holding ``stored`` records with random ids against an empty one; rounds alternate."""
+    """Batches of 1000 records with random (UUID 4) ids, as a field app sends them, posted to
+    a server whose database holds ``stored`` records with random ids and to one whose
+    database is empty (both up at once, rounds alternate): the per-record time."""
     probes = [f"P{k}" for k in range(10)]
-    monitors = {}
+    servers = {}
     for name in ("empty", "full"):
-        m = monitors[name] = monitor_for(folder / f"uuid-{name}.db", config)
+        db = folder / f"uuid-{name}.db"
+        m = monitor_for(db, config)
         m.store.add_facilities([(fid, "probe", "balanced", m.plans.snapshot("balanced"))
                                 for fid in probes + ["FILL"]], "2026-01-01T00:00:00Z", ACTOR)
-    conn = sqlite3.connect(folder / "uuid-full.db", isolation_level=None)
-    conn.execute("BEGIN")
-    for start in range(0, stored, 100_000):
-        conn.executemany(
-            "INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, observed_utc, "
-            "received_at, units, nonconforming, counted, void) VALUES (?, ?, 'FILL', 1, "
-            "'2026-11-30T10:00:00Z', '2026-11-30T10:00:00.000000Z', "
-            "'2026-11-30T10:00:00.000000Z', 1, ?, 1, 0)",
-            [(i + 1, str(uuid.uuid4()), i % 2) for i in range(start, min(start + 100_000,
-                                                                        stored))])
-    conn.execute("COMMIT")
-    conn.close()
-    cost = {"empty": [], "full": []}
-    for name, m in monitors.items():       # warm both
-        m.post_records(_uuid_batch(probes), ACTOR, with_state=False)
-    for _ in range(rounds):
-        for name, m in monitors.items():
-            payloads = [_uuid_batch(probes) for _ in range(batches)]
-            start = time.perf_counter()
-            for p in payloads:
-                m.post_records(p, ACTOR, with_state=False)
-            cost[name].append((time.perf_counter() - start) / (1000 * batches))
-    for m in monitors.values():
+        field = m.store.add_key("field", "bench tablet", "2026-01-01T00:00:00Z")[1]
         m.store.close()
+        if name == "full":
+            conn = sqlite3.connect(db, isolation_level=None)
+            conn.execute("BEGIN")
+            for start in range(0, stored, 100_000):
+                conn.executemany(
+                    "INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, "
+                    "observed_utc, received_at, units, nonconforming, counted, void) VALUES "
+                    "(?, ?, 'FILL', 1, '2026-11-30T10:00:00Z', '2026-11-30T10:00:00.000000Z', "
+                    "'2026-11-30T10:00:00.000000Z', 1, ?, 1, 0)",
+                    [(i + 1, str(uuid.uuid4()), i % 2)
+                     for i in range(start, min(start + 100_000, stored))])
+            conn.execute("COMMIT")
+            conn.close()
+        port = free_port()
+        servers[name] = (start_service(db, config, port), port, field)
+    cost = {"empty": [], "full": []}
+    try:
+        conns = {}
+        for name, (_, port, field) in servers.items():
+            wait_up(f"http://127.0.0.1:{port}/healthz")
+            conns[name] = http.client.HTTPConnection("127.0.0.1", port, timeout=300)
+        headers = {name: {"Authorization": f"Bearer {servers[name][2]}",
+                          "Content-Type": "application/json"} for name in servers}
+
+        def post(name: str, payload: bytes) -> None:
+            conns[name].request("POST", "/v1/records", body=payload, headers=headers[name])
+            got = conns[name].getresponse()
+            answer = got.read()
+            if got.status != 200 or orjson.loads(answer)["accepted"] != 1000:
+                raise RuntimeError(f"{got.status}: {answer[:300]!r}")
+
+        for name in servers:
+            post(name, orjson.dumps(_uuid_batch(probes)))
+        for _ in range(rounds):
+            for name in servers:
+                payloads = [orjson.dumps(_uuid_batch(probes)) for _ in range(batches)]
+                start = time.perf_counter()
+                for p in payloads:
+                    post(name, p)
+                cost[name].append((time.perf_counter() - start) / (1000 * batches))
+    finally:
+        for proc, _, _ in servers.values():
+            stop(proc)
     empty, full = min(cost["empty"]), min(cost["full"])
     return {"stored": stored, "empty_us": 1e6 * empty, "full_us": 1e6 * full,
             "ratio": full / empty}
