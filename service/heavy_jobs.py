@@ -45,3 +45,11 @@ def register_design_job(values: dict, size_text: str, false_flags_text: str,
     from .program import register_from_form
     res, register = register_from_form(values, size_text, false_flags_text, cap, calibrate)
     return res.to_dict(), register
+
+
+def forecast_job(db_path: str, region: str | None, budget: int | None, runs: int,
+                 seed: int) -> dict:
+    """The register forecast (see :func:`service.program_ops.forecast`)."""
+    from . import program_ops
+    return program_ops.forecast(_store(db_path), region=region, budget=budget, runs=runs,
+                                seed=seed)

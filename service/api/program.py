@@ -6,9 +6,12 @@ from fastapi.responses import Response
 
 from .. import program_ops
 from ..cautions import SIGNAL_NOT_VERDICT
+from ..heavy import run_heavy
+from ..heavy_jobs import forecast_job
 from ..operations import Monitor
 from ..program import PER_VISIT, RUNS, SEED
 from ..schemas_program import ForecastPublic, VisitsPublic
+from ..store.fingerprints import database_fingerprint
 from .deps import analyst, monitor
 
 router = APIRouter(prefix="/v1/program", tags=["program"])
@@ -18,15 +21,17 @@ Region = Query(None, max_length=64, description="limit to the facilities of one 
 
 @router.get("/forecast", response_model=ForecastPublic,
             summary="Exact figures of every open cycle from where it stands, and their sums")
-def forecast(region: str | None = Region,
-             budget: int | None = Query(None, description="audits a week: adds weeks to decide "
-                                                          "50 % and 90 % of the open cycles"),
-             runs: int = Query(RUNS, description="simulation runs for the weeks"),
-             seed: int = Query(SEED, ge=0, le=2 ** 63 - 1),
-             actor=Depends(analyst), m: Monitor = Depends(monitor)):
-    out = program_ops.forecast(m.store, region=region, budget=budget, runs=runs, seed=seed)
-    out["caution"] = SIGNAL_NOT_VERDICT
-    return out
+async def forecast(request: Request, region: str | None = Region,
+                   budget: int | None = Query(None, description="audits a week: adds weeks to "
+                                              "decide 50 % and 90 % of the open cycles"),
+                   runs: int = Query(RUNS, description="simulation runs for the weeks"),
+                   seed: int = Query(SEED, ge=0, le=2 ** 63 - 1),
+                   actor=Depends(analyst), m: Monitor = Depends(monitor)):
+    # in the heavy pool (service/heavy.py), cached until a record or an action changes the data
+    args = (str(m.store.path), region, budget, runs, seed)
+    out = await run_heavy(request.app.state, forecast_job, *args,
+                          key=("forecast", *args, database_fingerprint(m.store)))
+    return {**out, "caution": SIGNAL_NOT_VERDICT}
 
 
 @router.get("/visits", response_model=VisitsPublic,

@@ -19,3 +19,12 @@ def cycle_fingerprint(store, facility_id: str, cycle: int) -> tuple | None:
         "FROM cycles c JOIN facilities f ON f.facility_id = c.facility_id "
         "WHERE c.facility_id = ? AND c.cycle = ?", (facility_id, cycle))
     return tuple(rows[0].values()) if rows else None
+
+
+def database_fingerprint(store) -> tuple:
+    """A value that changes whenever a record is stored or an action is logged (registering a
+    facility, a void, a finding, opening or closing a cycle): the newest receipt number and
+    the newest action-log entry, both read from the end of their primary keys."""
+    row = store.read("SELECT (SELECT MAX(seq) FROM records) AS seq, "
+                     "(SELECT MAX(id) FROM actions) AS action")[0]
+    return (row["seq"], row["action"])
