@@ -19,8 +19,9 @@ One :class:`HeavyPool` per app (``app.state.heavy``); routes call :func:`run_hea
   void or finding, which changes the fingerprint, is never answered from the cache.
 * Errors raised by ``fn`` reach the caller as themselves (domain errors keep their fields).
 
-Workers are started from a fork server (the ``forkserver`` start method: no fork of a
-process that runs threads), which imports the heavy libraries once.
+Workers are started with the ``spawn`` method (a fresh interpreter: no fork of a process
+that runs threads); the server starts them when it starts (``warm``), so the imports of the
+heavy libraries are not paid by the first request.
 """
 from __future__ import annotations
 
@@ -38,7 +39,6 @@ from typing import Any, Callable, Hashable
 
 from .errors import Busy, TimedOut
 
-_PRELOAD = ["service.heavy_jobs"]
 
 
 @dataclass(frozen=True)
@@ -136,8 +136,9 @@ class HeavyPool:
 
     def __init__(self, settings: HeavySettings | None = None):
         s = self.settings = settings or HeavySettings()
-        ctx = multiprocessing.get_context("forkserver")
-        ctx.set_forkserver_preload(_PRELOAD)
+        # spawn: a fresh interpreter per worker (no fork of a process that runs threads);
+        # a fork server fails to start inside uvicorn's own spawned worker processes
+        ctx = multiprocessing.get_context("spawn")
         self._slots = [_Slot(ctx, s.nice) for _ in range(max(1, s.workers))]
         self._free = list(self._slots)
         self._threads: ThreadPoolExecutor | None = None
