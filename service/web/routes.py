@@ -215,22 +215,11 @@ def close(request: Request, facility_id: str, reason: str = Form(""), csrf: str 
 
 
 @router.get("/facilities/{facility_id}/cycles/{cycle}/casefile.pdf")
-<<<<<<< HEAD
-def casefile(facility_id: str, cycle: int, user: UiUser = Depends(current_user),
-             m: Monitor = Depends(monitor)):
-    from ..casefile import build_casefile
-    from ..casefile.pdf import render_pdf
-    pdf = render_pdf(build_casefile(m.store, facility_id, cycle))
-    safe = file_safe(facility_id)
-    return Response(pdf, media_type="application/pdf", headers={
-        "Content-Disposition": f'attachment; filename="casefile-{safe}-cycle{cycle}.pdf"'})
-=======
 async def casefile(request: Request, facility_id: str, cycle: int,
                    user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
     from ..api.casefiles import attachment, casefile as heavy_casefile
     pdf = await heavy_casefile(request, m, "pdf", facility_id, cycle, 0.95)
     return Response(pdf, media_type="application/pdf", headers=attachment(facility_id, cycle))
->>>>>>> 4a685eb (Heavy work (case files, workbench designs) in a bounded pool of worker processes: timeout, 503 with Retry-After when full, results cached by inputs and a cycle fingerprint)
 
 
 # -- alerts ------------------------------------------------------------------------------------
@@ -295,18 +284,11 @@ def ack(request: Request, alert_id: int, note: str = Form(""), csrf: str = Form(
 
 # -- plan workbench ---------------------------------------------------------------------------
 @router.get("/workbench", response_class=HTMLResponse)
-<<<<<<< HEAD
-def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str = "0.05",
+async def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str = "0.05",
               beta: str = "0.10", max_units: str = "", calibrate: str = "",
               register_size: str = "", register_false_flags: str = "",
               watch_arl0: str = "", watch_p1: str = "",
               user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
-=======
-async def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str = "0.05",
-                    beta: str = "0.10", max_units: str = "", calibrate: str = "",
-                    register_size: str = "", register_false_flags: str = "",
-                    user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
->>>>>>> 4a685eb (Heavy work (case files, workbench designs) in a bounded pool of worker processes: timeout, 503 with Retry-After when full, results cached by inputs and a cycle fingerprint)
     form = {"p0": p0, "p1": p1, "alpha": alpha, "beta": beta, "max_units": max_units,
             "calibrate": bool(calibrate), "register_size": register_size,
             "register_false_flags": register_false_flags, "watch_arl0": watch_arl0,
