@@ -23,6 +23,7 @@ References
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -34,7 +35,7 @@ from .sprt import SprtPlan
 RESIDUAL_TOL = 1e-12
 #: Safety stop for plans whose open mass decays too slowly; the residual
 #: left at that point is reported, never hidden.
-MAX_STEPS = 1_000_000
+MAX_STEPS = 4_000_000
 _BLOCK = 4096
 _CHUNK_CELLS = 4_000_000   # rates x stop points evaluated at once (32 MB of float64)
 _CHECK_EVERY = 64
@@ -62,26 +63,46 @@ def _log_weight(n, d, p):
 class PathCounts:
     """Log-counts of the paths that first stop at each lattice point of a plan.
 
-    The recursion can be continued: :meth:`evaluate` advances it until the
-    rates it is asked about have less than ``residual_tol`` still open.
+    The boundaries are looked at after every ``plan.visit_units`` units (and at
+    the cap, the last look); between looks nothing stops. The recursion can be
+    continued: :meth:`evaluate` advances it until the rates it is asked about
+    have less than ``residual_tol`` still open.
+
+    Internally the open counts are held in linear scale, tilted to the rate s
+    at which the test's walk has no drift: w(n, d) = K(n, d) r**d t**n / C with
+    r = s / (1 - s), t = min(1, 1/r) and a running scalar C (kept in logs). The
+    step is then w(n, d) = c0 w(n-1, d) + c1 w(n-1, d-1) with c0, c1 <= 1 (the
+    probability recursion at rate s up to a constant), so one unit costs two
+    vector operations and the counts inside the band stay within float range.
     """
 
     def __init__(self, plan: SprtPlan, max_steps: int = MAX_STEPS):
         self.plan = plan
+        self.visit = int(getattr(plan, "visit_units", 1) or 1)
         self.horizon = plan.max_units if plan.max_units is not None else max_steps
         self.n = 0
         self.lo = self.hi = 0            # open d range at self.n
-        self._open = np.zeros(1)         # log K(n, d) for d in [lo, hi]: one path at (0, 0)
+        ratio = plan.s / (1.0 - plan.s)
+        self._log_r = math.log(ratio)
+        self._log_t = 0.0 if ratio <= 1.0 else -self._log_r
+        self._c0, self._c1 = (1.0, ratio) if ratio <= 1.0 else (1.0 / ratio, 1.0)
+        self._open = np.ones(1)          # w at (0, 0): one path
+        self._scale = 0.0                # log C
         self._chunks = {True: [], False: []}   # flag?: list of (n, d, logk) arrays
         self._joined = {}
         self.finished = False
+
+    def _to_log(self, n, d, w, scale) -> np.ndarray:
+        with np.errstate(divide="ignore"):
+            return np.log(w) + scale - d * self._log_r - n * self._log_t
 
     @property
     def open_logk(self) -> tuple[np.ndarray, np.ndarray]:
         """(d, log K) of the points still open at ``self.n``."""
         if self.finished or self.hi < self.lo:
             return np.zeros(0, dtype=np.int64), np.zeros(0)
-        return np.arange(self.lo, self.hi + 1), self._open.copy()
+        d = np.arange(self.lo, self.hi + 1)
+        return d, self._to_log(self.n, d, self._open, self._scale)
 
     def residual(self, p) -> np.ndarray:
         """Probability still open at ``self.n`` for each rate in ``p``."""
@@ -97,50 +118,83 @@ class PathCounts:
             self._chunks[flag].append((n[keep], d[keep], logk[keep]))
             self._joined.pop(flag, None)
 
+    def looks(self, ns: np.ndarray) -> np.ndarray:
+        """Whether the boundaries are looked at after each unit count in ``ns``."""
+        look = (ns % self.visit == 0) if self.visit > 1 else np.ones(ns.size, dtype=bool)
+        if self.plan.max_units is not None:
+            look |= ns == self.plan.max_units
+        return look
+
     def _advance_block(self, p_check, residual_tol) -> None:
-        plan, n0 = self.plan, self.n
+        plan, n0, visit = self.plan, self.n, self.visit
         m = min(_BLOCK, self.horizon - n0)
+        width = self.hi - self.lo + 1 + min(visit, m) + 2
+        band = math.ceil((plan.upper_llr - plan.lower_llr) / (plan.g1 + plan.g2)) + 3
+        cols = max(width, band + min(visit, m) + 2)
+        m = max(1, min(m, _CHUNK_CELLS // (2 * cols)))
         ns = np.arange(n0 + 1, n0 + m + 1)
-        new_lo = np.maximum(plan.acceptance_numbers(ns) + 1, 0)
-        new_hi = np.minimum(plan.rejection_numbers(ns) - 1, ns)
-        cols = int(max((new_hi - new_lo).max(initial=0), self.hi - self.lo)) + 3
-        hist = np.full((m, cols), -np.inf)   # row i: log K at n0+i+1 for d from row_lo[i]
-        row_lo = np.empty(m, dtype=np.int64)
-        row_w = np.empty(m, dtype=np.int64)
-        lo_list, hi_list = new_lo.tolist(), new_hi.tolist()
-        logaddexp = np.logaddexp
-        src, lo, hi = self._open, self.lo, self.hi
+        acc = (plan.acceptance_numbers(ns) + 1).tolist()    # lowest d still open
+        rej = (plan.rejection_numbers(ns) - 1).tolist()     # highest d still open
+        look = self.looks(ns).tolist()
+        hist = np.zeros((m, cols))      # row i: w at n0+i+1 for d from row_lo[i]
+        row_lo, row_w, row_scale, keep_lo, keep_hi = [], [], [], [], []
+        c0, c1 = self._c0, self._c1
+        src, lo, hi, scale = self._open, self.lo, self.hi, self._scale
         check = p_check is not None
         used = m
         for i in range(m):
             w = hi - lo + 1
             dst = hist[i]
-            # K(n, d) = K(n-1, d) + K(n-1, d-1) over d in [lo, hi + 1]
-            dst[:w] = src
-            logaddexp(dst[1:w + 1], src, out=dst[1:w + 1])
-            row_lo[i] = lo
-            row_w[i] = w + 1
-            nl, nh = lo_list[i], hi_list[i]
-            src = dst[nl - lo:nh - lo + 1]
-            lo, hi = nl, nh
-            if hi < lo:
+            # K(n, d) = K(n-1, d) + K(n-1, d-1) over d in [lo, hi + 1], tilted
+            if c0 == 1.0:
+                dst[:w] = src
+                dst[1:w + 1] += src * c1
+            else:
+                np.multiply(src, c0, out=dst[:w])
+                dst[1:w + 1] += src
+            row_lo.append(lo)
+            row_w.append(w + 1)
+            row_scale.append(scale)
+            if look[i]:
+                nl, nh = max(lo, acc[i]), min(hi + 1, rej[i])
+            else:
+                nl, nh = lo, hi + 1
+            keep_lo.append(nl)
+            keep_hi.append(nh)
+            if nh < nl:
                 self.finished = True
                 used = i + 1
+                lo, hi = nl, nh
                 break
-            if check and (n0 + i + 1) % _CHECK_EVERY == 0:
-                if _sum_exp(src + _log_weight(n0 + i + 1, np.arange(lo, hi + 1),
-                                              p_check)).max() < residual_tol:
-                    used = i + 1
-                    break
+            src = dst[nl - lo:nh - lo + 1]
+            lo, hi = nl, nh
+            if (n0 + i + 1) % _CHECK_EVERY == 0:
+                top = float(src.max())
+                if top > 0.0:
+                    src = src / top
+                    scale += math.log(top)
+                if check:
+                    n_now = n0 + i + 1
+                    d_now = np.arange(lo, hi + 1)
+                    logk = self._to_log(n_now, d_now, src, scale)
+                    if _sum_exp(logk + _log_weight(n_now, d_now, p_check)).max() < residual_tol:
+                        used = i + 1
+                        break
         # Everything that left the band during the block, found in one pass.
-        hist, row_lo, row_w = hist[:used], row_lo[:used], row_w[:used]
+        hist = hist[:used]
+        row_lo, row_w = np.array(row_lo, dtype=np.int64), np.array(row_w, dtype=np.int64)
+        keep_lo, keep_hi = np.array(keep_lo), np.array(keep_hi)
+        row_scale = np.array(row_scale)
         d_grid = row_lo[:, None] + np.arange(cols)
         n_grid = np.broadcast_to(ns[:used, None], d_grid.shape)
+        s_grid = np.broadcast_to(row_scale[:, None], d_grid.shape)
         filled = np.arange(cols) < row_w[:, None]
-        for flag, mask in ((False, filled & (d_grid < new_lo[:used, None])),
-                           (True, filled & (d_grid > new_hi[:used, None]))):
-            self._add_points(flag, n_grid[mask], d_grid[mask], hist[mask])
+        for flag, mask in ((False, filled & (d_grid < keep_lo[:, None])),
+                           (True, filled & (d_grid > keep_hi[:, None]))):
+            nn, dd = n_grid[mask], d_grid[mask]
+            self._add_points(flag, nn, dd, self._to_log(nn, dd, hist[mask], s_grid[mask]))
         self._open = src.copy() if hi >= lo else np.zeros(0)
+        self._scale = scale
         self.lo, self.hi, self.n = lo, hi, n0 + used
         if self.n == self.horizon and plan.max_units is not None and not self.finished:
             self._decide_at_cap()
