@@ -5,10 +5,11 @@ import tomllib
 from dataclasses import asdict, dataclass
 from pathlib import Path
 
-from .stats import check_rates
+from .stats import Recheck, check_rates
 
 PLAN_KEYS = {"p0", "p1", "alpha", "beta", "max_units", "cut_llr", "calibrate",
-             "remonitor_after_days", "stale_after_days", "title", "require_draw"}
+             "remonitor_after_days", "stale_after_days", "title", "require_draw",
+             "visit_units", "sensitivity", "specificity"}
 
 
 class ConfigError(ValueError):
@@ -31,11 +32,15 @@ class PlanSpec:
     stale_after_days: float | None = None
     remonitor_after_days: float | None = None
     require_draw: bool = False      # only records of drawn units are evidence
+    visit_units: int = 1
+    sensitivity: float = 1.0
+    specificity: float = 1.0
 
     def design_args(self) -> dict:
         return {"p0": self.p0, "p1": self.p1, "alpha": self.alpha, "beta": self.beta,
                 "max_units": self.max_units, "cut_llr": self.cut_llr,
-                "calibrate": self.calibrate}
+                "calibrate": self.calibrate, "visit_units": self.visit_units,
+                "sensitivity": self.sensitivity, "specificity": self.specificity}
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -51,7 +56,9 @@ def plan_from_table(name: str, table: dict, source: str = "config") -> PlanSpec:
         raise ConfigError(f"{source}: [plans.{name}] lacks {', '.join(sorted(missing))}")
     spec = PlanSpec(name=name, **table)
     try:
-        check_rates(spec.p0, spec.p1, spec.alpha, spec.beta, spec.max_units, spec.cut_llr)
+        check_rates(spec.p0, spec.p1, spec.alpha, spec.beta, spec.max_units, spec.cut_llr,
+                    spec.visit_units)
+        Recheck(spec.sensitivity, spec.specificity)
     except ValueError as exc:
         raise ConfigError(f"{source}: [plans.{name}]: {exc}") from None
     if not isinstance(spec.calibrate, bool):

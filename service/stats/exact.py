@@ -76,9 +76,14 @@ class PathCounts:
     vector operations and the counts inside the band stay within float range.
     """
 
-    def __init__(self, plan: SprtPlan, max_steps: int = MAX_STEPS):
+    def __init__(self, plan: SprtPlan, max_steps: int = MAX_STEPS, first_looks=None):
         self.plan = plan
         self.visit = int(getattr(plan, "visit_units", 1) or 1)
+        # optional unit counts of the first looks (e.g. the records that really came);
+        # after the last of them the looks come every visit_units units again
+        self._first = np.unique(np.asarray(first_looks if first_looks is not None else [],
+                                           dtype=np.int64))
+        self._after = int(self._first[-1]) if self._first.size else 0
         self.horizon = plan.max_units if plan.max_units is not None else max_steps
         self.n = 0
         self.lo = self.hi = 0            # open d range at self.n
@@ -121,6 +126,10 @@ class PathCounts:
     def looks(self, ns: np.ndarray) -> np.ndarray:
         """Whether the boundaries are looked at after each unit count in ``ns``."""
         look = (ns % self.visit == 0) if self.visit > 1 else np.ones(ns.size, dtype=bool)
+        if self._first.size:
+            later = ns > self._after
+            look = np.where(later, (ns - self._after) % self.visit == 0,
+                            np.isin(ns, self._first))
         if self.plan.max_units is not None:
             look |= ns == self.plan.max_units
         return look
@@ -128,6 +137,9 @@ class PathCounts:
     def _advance_block(self, p_check, residual_tol) -> None:
         plan, n0, visit = self.plan, self.n, self.visit
         m = min(_BLOCK, self.horizon - n0)
+        if self._first.size and n0 < self._after:   # the gap between given looks
+            gaps = np.diff(np.r_[0, self._first])
+            visit = max(visit, int(gaps.max()))
         width = self.hi - self.lo + 1 + min(visit, m) + 2
         band = math.ceil((plan.upper_llr - plan.lower_llr) / (plan.g1 + plan.g2)) + 3
         cols = max(width, band + min(visit, m) + 2)
