@@ -8,8 +8,11 @@ depend on the true rate, and for any rate p
     P(stop at (n, d) | p) = K(n, d) p**d (1-p)**(n-d).
 
 K is built once per plan by the usual forward recursion over the open band of
-the (n, d) lattice (kept in logarithms, so counts of any size are exact to
-rounding), and then every rate is evaluated at once, vectorised over p. An
+the (n, d) lattice (in linear scale tilted to the driftless rate s with a
+running log scale, so counts of any size are exact to rounding; stop points are
+kept in logarithms), and then every rate is evaluated at once, vectorised over
+p. Plans looked at after every unit with a small s are advanced column by
+column: along a count d the recursion is a cumulative sum of the column below. An
 untruncated plan is followed until the mass still open is below 1e-12 for every
 rate asked for; a capped plan decides what is open at N by the cut rule.
 
@@ -39,6 +42,12 @@ MAX_STEPS = 4_000_000
 _BLOCK = 4096
 _CHUNK_CELLS = 4_000_000   # rates x stop points evaluated at once (32 MB of float64)
 _CHECK_EVERY = 64
+#: plans with s at most this (looked at after every unit) advance by column sweeps
+_COLUMN_S = 0.25
+_COLUMN_BLOCK = 65536
+#: open mass below this makes later stop points of that rate negligible (far below 1e-12 even
+#: when weighted by the units, which never exceed MAX_STEPS)
+_NEGLIGIBLE = 1e-24
 
 
 def _log_weight(n, d, p):
@@ -95,6 +104,7 @@ class PathCounts:
         self._scale = 0.0                # log C
         self._chunks = {True: [], False: []}   # flag?: list of (n, d, logk) arrays
         self._joined = {}
+        self._quiet: dict[float, int] = {}   # rate -> first n seen with open mass negligible
         self.finished = False
 
     def _to_log(self, n, d, w, scale) -> np.ndarray:
@@ -211,6 +221,87 @@ class PathCounts:
         if self.n == self.horizon and plan.max_units is not None and not self.finished:
             self._decide_at_cap()
 
+    def _columns_usable(self) -> bool:
+        """Column sweeps serve plans looked at after every unit whose tilt c0 is 1 (s <= 1/2)
+        and whose band is crossed slowly (small s): there they replace one vector step per
+        unit by one cumulative sum per count d."""
+        return self.visit == 1 and not self._first.size and self._c0 == 1.0 \
+            and self.plan.s <= _COLUMN_S
+
+    def _advance_columns(self, p_check, residual_tol) -> None:
+        """Advance a block of units column by column.
+
+        Looked at after every unit, the band's ends lo(n), hi(n) never fall and rise by at most
+        one a unit, so a count d is open on one run of n. Along that run the tilted counts obey
+        w(n, d) = w(n-1, d) + r w(n-1, d-1): a cumulative sum of the column d-1 below it. Points
+        reached off the run are where paths stop (flag above the band, clear below it).
+        """
+        plan, n0 = self.plan, self.n
+        r = self._c1
+        band = max(self.hi - self.lo + 1,
+                   math.ceil((plan.upper_llr - plan.lower_llr) / (plan.g1 + plan.g2)) + 2)
+        m = int(min(_COLUMN_BLOCK, self.horizon - n0,
+                    max(1024, 2 * band / max(plan.s, 1e-12)),
+                    max(64, 300.0 / math.log1p(r))))
+        ns = np.arange(n0 + 1, n0 + m + 1)
+        lo_n = np.maximum(plan.acceptance_numbers(ns) + 1, 0)
+        hi_n = np.minimum(plan.rejection_numbers(ns) - 1, ns)
+        start = np.r_[self._open, 0.0] if self.hi >= self.lo else np.zeros(1)
+        d_first, d_last = self.lo, int(max(hi_n.max(initial=0), self.hi)) + 1
+        below = np.zeros(m)          # open values of column d-1 over the block
+        below0 = 0.0                 # column d-1 at n0
+        end_vals = []
+        chunks_n, chunks_d, chunks_v, chunks_f = [], [], [], []
+        for d in range(d_first, d_last + 1):
+            x = np.empty(m)
+            x[0] = below0
+            x[1:] = below[:-1]
+            x *= r
+            carry = float(start[d - self.lo]) if self.lo <= d <= self.hi else 0.0
+            open_ = (lo_n <= d) & (hi_n >= d)
+            idx = np.flatnonzero(open_)
+            v = x
+            if carry:
+                v[0] += carry
+            col = np.zeros(m)
+            if idx.size:
+                a, b = int(idx[0]), int(idx[-1])
+                seg = np.cumsum(v[a:b + 1])
+                col[a:b + 1] = seg
+                v = v.copy()
+                v[a:b + 1] = 0.0
+                if b + 1 < m:
+                    v[b + 1] += seg[-1]
+            hit = np.flatnonzero(v > 0.0)
+            if hit.size:
+                chunks_n.append(ns[hit])
+                chunks_d.append(np.full(hit.size, d))
+                chunks_v.append(v[hit])
+                chunks_f.append(d > hi_n[hit])
+            end_vals.append(col[-1])
+            below, below0 = col, carry if (self.lo <= d <= self.hi) else 0.0
+        scale = self._scale
+        if chunks_n:
+            nn, dd = np.concatenate(chunks_n), np.concatenate(chunks_d)
+            vv, ff = np.concatenate(chunks_v), np.concatenate(chunks_f)
+            logk = self._to_log(nn, dd, vv, scale)
+            self._add_points(True, nn[ff], dd[ff], logk[ff])
+            self._add_points(False, nn[~ff], dd[~ff], logk[~ff])
+        lo, hi = int(lo_n[-1]), int(hi_n[-1])
+        self.n = n0 + m
+        if hi >= lo:
+            vals = np.array(end_vals)[lo - d_first:hi - d_first + 1]
+            top = float(vals.max())
+            if top > 0.0:
+                vals = vals / top
+                scale += math.log(top)
+            self._open, self.lo, self.hi, self._scale = vals, lo, hi, scale
+        else:
+            self._open, self.lo, self.hi = np.zeros(0), lo, hi
+            self.finished = True
+        if self.n == self.horizon and plan.max_units is not None and not self.finished:
+            self._decide_at_cap()
+
     def _decide_at_cap(self) -> None:
         """Split what is open at the cap N: flag iff LLR(N, d) >= cut_llr."""
         d, logk = self.open_logk
@@ -224,17 +315,25 @@ class PathCounts:
         """Continue the recursion until every rate in ``p`` has < ``residual_tol`` open."""
         p = np.atleast_1d(np.asarray(p, dtype=float))
         capped = self.plan.max_units is not None
+        step = self._advance_columns if self._columns_usable() else self._advance_block
         while not self.finished and self.n < self.horizon:
-            if not capped and self.residual(p).max() < residual_tol:
-                return
-            self._advance_block(None if capped else p, residual_tol)
+            if not capped:
+                open_mass = self.residual(p)
+                for rate, mass in zip(p.tolist(), open_mass.tolist()):
+                    if mass < _NEGLIGIBLE:
+                        self._quiet.setdefault(rate, self.n)
+                if open_mass.max() < residual_tol:
+                    return
+            step(None if capped else p, residual_tol)
 
     def points(self, flag: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(n, d, log K) of every point where paths stop flagged (or cleared), in n order."""
         if flag not in self._joined:
             chunks = self._chunks[flag]
             if chunks:
-                self._joined[flag] = tuple(np.concatenate(c) for c in zip(*chunks))
+                n, d, k = (np.concatenate(c) for c in zip(*chunks))
+                order = np.argsort(n, kind="stable")   # column sweeps add points d by d
+                self._joined[flag] = (n[order], d[order], k[order])
             else:
                 self._joined[flag] = (np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64),
                                       np.zeros(0))
@@ -248,11 +347,17 @@ class PathCounts:
         """(sum of P, sum of n P) over the stop points, in chunks so memory stays bounded."""
         ns, ds, ks = self.points(flag)
         prob, units = np.zeros(p.size), np.zeros(p.size)
+        # a rate whose open mass fell below _NEGLIGIBLE at some n gets nothing measurable
+        # from the stop points after it: they are skipped for that rate
+        quiet = np.array([self._quiet.get(x, np.inf) for x in p.tolist()])
         step = max(1, _CHUNK_CELLS // max(p.size, 1))
         for a in range(0, ns.size, step):
-            mass = np.exp(ks[a:a + step] + _log_weight(ns[a:a + step], ds[a:a + step], p))
-            prob += mass.sum(axis=1)
-            units += mass @ ns[a:a + step]
+            rows = np.flatnonzero(quiet >= ns[a])
+            if rows.size == 0:
+                break
+            mass = np.exp(ks[a:a + step] + _log_weight(ns[a:a + step], ds[a:a + step], p[rows]))
+            prob[rows] += mass.sum(axis=1)
+            units[rows] += mass @ ns[a:a + step]
         return prob, units
 
     def summary(self, p, residual_tol: float = RESIDUAL_TOL) -> "ExactSummary":
