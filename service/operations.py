@@ -101,11 +101,17 @@ class PlanBook:
             return self._plans[name]
 
     def design(self, name: str):
+        """The plan's full figures, computed once; never under the lock that plan() takes, so
+        that registering a facility does not wait for a curve (the start-up warm-up computes
+        these in a background thread)."""
         spec = self.spec(name)
         with self._lock:
-            if name not in self._designs:
-                self._designs[name] = design(**spec.design_args())
-            return self._designs[name]
+            done = self._designs.get(name)
+        if done is None:
+            done = design(**spec.design_args())
+            with self._lock:
+                done = self._designs.setdefault(name, done)
+        return done
 
     def snapshot(self, name: str) -> dict:
         """What a new cycle stores about its plan, so editing the config never changes it."""
