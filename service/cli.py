@@ -3,15 +3,26 @@ from __future__ import annotations
 
 import argparse
 import json
+import re
 import sys
 from pathlib import Path
 
-CHART_FORMATS = (".png", ".svg", ".pdf")
+from .commands.plan import CHART_FORMATS  # plain Python: no numpy at parse time
+
 DEFAULT_CONFIG = Path(__file__).resolve().parent.parent / "config" / "seqaudit.toml"
 
 
 class _Parser(argparse.ArgumentParser):
-    """argparse that reports a bad command line in one line and exits 2."""
+    """argparse that reports a bad command line in one line and exits 2.
+
+    A value such as ``-3``, ``-1e20`` or ``-inf`` after an option is that option's value
+    (argparse's own pattern only knows plain negative decimals).
+    """
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self._negative_number_matcher = re.compile(
+            r"^-(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$|^-(inf|infinity|nan)$", re.IGNORECASE)
 
     def error(self, message):  # noqa: D401 - argparse hook
         self.exit(2, f"{self.prog}: error: {message}\n")
@@ -46,6 +57,15 @@ def _add_plan(sub) -> None:
                    help="at the cap, flag iff LLR >= this (default 0)")
     p.add_argument("--calibrate", action="store_true",
                    help="tune the boundaries so the exact risks meet alpha and beta")
+    p.add_argument("--visit-units", type=_unit_count, default=1, metavar="K",
+                   help="units per record: the boundaries are looked at every K units "
+                        "(default 1)")
+    p.add_argument("--sensitivity", type=_rate, default=1.0,
+                   help="chance a re-check finds a truly nonconforming unit (default 1)")
+    p.add_argument("--specificity", type=_rate, default=1.0,
+                   help="chance a re-check passes a truly conforming unit (default 1)")
+    p.add_argument("--rate", type=_rate, action="append", default=[], metavar="P",
+                   help="also report the figures at this true rate (repeatable)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--plot", metavar="FILE", help="write OC and ASN curves (.png, .svg, .pdf)")
     p.add_argument("--register-size", type=_unit_count, default=None, metavar="K",
@@ -65,58 +85,8 @@ def _add_plans(sub) -> None:
 
 
 def _cmd_plan(args, parser) -> int:
-    from .plan_report import render
-    from .stats import PlanInputError, design
-
-    if args.plot and Path(args.plot).suffix.lower() not in CHART_FORMATS:
-        parser.error(f"argument --plot: file must end in {', '.join(CHART_FORMATS)}, "
-                     f"got {args.plot!r}")
-    if args.plot and not Path(args.plot).resolve().parent.is_dir():
-        parser.error(f"argument --plot: folder {str(Path(args.plot).resolve().parent)!r} does "
-                     "not exist; create it first or write the chart elsewhere")
-    register = None
-    if (args.register_size is None) != (args.register_false_flags is None):
-        parser.error("arguments --register-size and --register-false-flags go together")
-    try:
-        if args.register_size is not None:
-            from .stats.register import register_design
-            result, register = register_design(
-                args.p0, args.p1, args.alpha, args.beta, args.register_size,
-                args.register_false_flags, max_units=args.max_units, cut_llr=args.cut_llr,
-                calibrate=args.calibrate)
-        else:
-            result = design(args.p0, args.p1, args.alpha, args.beta, max_units=args.max_units,
-                            cut_llr=args.cut_llr, calibrate=args.calibrate)
-    except PlanInputError as exc:
-        parser.error(f"argument --{exc.argument.replace('_', '-')}: {exc}")
-    except ValueError as exc:  # e.g. a cap too small for calibration to meet the risks
-        parser.error(str(exc))
-    from .commands.watch import watch_of_args
-    watch = watch_of_args(args, parser)
-    if args.plot:
-        from .charts import save_plan_chart  # matplotlib only when a chart is asked for
-        try:
-            save_plan_chart(result, args.plot)
-        except OSError as exc:   # e.g. a folder without write permission
-            parser.error(f"argument --plot: cannot write {args.plot!r}: {exc.strerror or exc}")
-    if args.json:
-        out = result.to_dict()
-        if register is not None:
-            out["register"] = register
-        out["watch"] = None if watch is None else watch.to_dict()
-        json.dump(out, sys.stdout, indent=2)
-        sys.stdout.write("\n")
-    else:
-        if register is not None:
-            from .program import register_lines
-            sys.stdout.write("\n".join(register_lines(register)) + "\n\n")
-        sys.stdout.write(render(result))
-        if watch is not None:
-            from .watching import report_lines
-            sys.stdout.write("\n".join(report_lines(watch)) + "\n")
-        if args.plot:
-            sys.stdout.write(f"\nChart written to {args.plot}\n")
-    return 0
+    from .commands.plan import run_plan
+    return run_plan(args, parser)
 
 
 def _cmd_plans(args, parser) -> int:

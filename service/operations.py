@@ -20,8 +20,8 @@ from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
 from .schemas import FACILITY_ID_PATTERN, PRINTABLE, RFC3339_PATTERN, FacilityCreate, \
     RecordBatchCreate, RecordCreate
+from .stats import Recheck, SprtPlan, design
 from .watching import design_for
-from .stats import SprtPlan, design
 from .stats.calibrate import calibrate
 from .store import RecordIn, Store
 
@@ -91,20 +91,29 @@ class PlanBook:
         return self.specs[name]
 
     def plan(self, name: str) -> SprtPlan:
+        """The plan a new cycle runs: on the apparent rates when re-checks are imperfect."""
         spec = self.spec(name)
         with self._lock:
             if name not in self._plans:
-                base = SprtPlan.wald(spec.p0, spec.p1, spec.alpha, spec.beta,
-                                     max_units=spec.max_units, cut_llr=spec.cut_llr)
+                rc = Recheck(spec.sensitivity, spec.specificity)
+                base = SprtPlan.wald(rc.apparent(spec.p0), rc.apparent(spec.p1), spec.alpha,
+                                     spec.beta, max_units=spec.max_units, cut_llr=spec.cut_llr,
+                                     visit_units=spec.visit_units)
                 self._plans[name] = calibrate(base).plan if spec.calibrate else base
             return self._plans[name]
 
     def design(self, name: str):
+        """The plan's full figures, computed once; never under the lock that plan() takes, so
+        that registering a facility does not wait for a curve (the start-up warm-up computes
+        these in a background thread)."""
         spec = self.spec(name)
         with self._lock:
-            if name not in self._designs:
-                self._designs[name] = design(**spec.design_args())
-            return self._designs[name]
+            done = self._designs.get(name)
+        if done is None:
+            done = design(**spec.design_args())
+            with self._lock:
+                done = self._designs.setdefault(name, done)
+        return done
 
     def watch(self, name: str):
         """The plan's watch chart (``WatchDesign``) or None when the plan has no watch."""
@@ -119,10 +128,13 @@ class PlanBook:
     def snapshot(self, name: str) -> dict:
         """What a new cycle stores about its plan, so editing the config never changes it."""
         spec, plan = self.spec(name), self.plan(name)
-        return {"name": name, "p0": plan.p0, "p1": plan.p1, "alpha": plan.alpha,
+        return {"name": name, "p0": spec.p0, "p1": spec.p1, "alpha": plan.alpha,
                 "beta": plan.beta, "max_units": plan.max_units, "cut_llr": plan.cut_llr,
                 "calibrate": spec.calibrate, "upper_llr": plan.upper_llr,
                 "lower_llr": plan.lower_llr, "require_draw": spec.require_draw,
+                "visit_units": spec.visit_units,
+                "sensitivity": spec.sensitivity, "specificity": spec.specificity,
+                "apparent_p0": plan.p0, "apparent_p1": plan.p1,
                 **self._watch_snapshot(name)}
 
     def _watch_snapshot(self, name: str) -> dict:
@@ -132,14 +144,21 @@ class PlanBook:
         return {"watch": {"m": w.m, "t": w.t, "p1": w.p1, "arl0": w.arl0, "arl_p0": w.arl_p0,
                           "arl_p1": w.arl_p1}}
 
-    def public(self, name: str) -> dict:
+    def public(self, name: str, rates=()) -> dict:
         spec = self.spec(name)
-        d = self.design(name).to_dict()
+        if rates:
+            d = design(**spec.design_args(), rates=tuple(rates)).to_dict()
+        else:
+            d = self.design(name).to_dict()
         return {"name": name, "title": spec.title, "p0": spec.p0, "p1": spec.p1,
                 "alpha": spec.alpha, "beta": spec.beta, "max_units": spec.max_units,
                 "cut_llr": spec.cut_llr, "calibrate": spec.calibrate,
+                "visit_units": spec.visit_units, "sensitivity": spec.sensitivity,
+                "specificity": spec.specificity, "warnings": d["warnings"],
                 "boundaries": d["boundaries"], "exact": d["exact"], "wald": d["wald"],
-                "fixed_sample": d["fixed_sample"],
+                "fixed_sample": d["fixed_sample"], "recheck": d["recheck"],
+                "calibration": d["calibration"], "decision_numbers": d["decision_numbers"],
+                "at_rates": d["at_rates"],
                 "watch": None if spec.watch is None else self.watch(name).to_dict()}
 
 

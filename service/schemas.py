@@ -277,11 +277,19 @@ class PlanPublic(BaseModel):
     max_units: int | None
     cut_llr: float
     calibrate: bool
+    visit_units: int = 1
+    sensitivity: float = 1.0
+    specificity: float = 1.0
+    warnings: list[dict[str, str]] = []
     boundaries: dict[str, float]
     exact: dict[str, Any]
     wald: dict[str, float]
     fixed_sample: dict[str, Any]
     watch: dict[str, Any] | None = None
+    recheck: dict[str, float] = {}
+    calibration: dict[str, Any] | None = None
+    decision_numbers: list[dict[str, Any]] = []
+    at_rates: list[dict[str, Any]] = []
 
 
 class WebhookCreate(_Strict):
@@ -369,6 +377,11 @@ class CaseFilePublic(BaseModel):
     estimate_median_unbiased: float = Field(ge=0, le=1)
     estimate_naive: float = Field(ge=0, le=1)
     estimate_naive_note: str
+    estimate_mid_p: float = Field(ge=0, le=1)
+    estimate_note: str
+    recheck: dict[str, Any]
+    looks: dict[str, Any]
+    warnings: list[dict[str, str]]
     plan: dict[str, Any]
     plan_explained: dict[str, str]
     cycle_state: CyclePublic

@@ -41,6 +41,8 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
             http = httpx2.Client(timeout=settings.delivery.timeout_s, follow_redirects=False)
             scheduler = start_scheduler(settings, monitor, http)
         app.state.scheduler = scheduler
+        from ..plan_check import warm_up
+        warm_up(monitor.plans)   # full plan figures in the background: /healthz need not wait
         try:
             yield
         finally:

@@ -84,10 +84,20 @@ def render_pdf(cf: dict) -> bytes:
                 f"{cf['ci_low']:.4f} to {cf['ci_high']:.4f}",
                 _p("exact, by inverting the stagewise ordering", SMALL)],
                ["median-unbiased estimate", f"{cf['estimate_median_unbiased']:.4f}",
-                _p("rate at which the upward chance is one half", SMALL)],
+                _p("rate at which the upward chance is one half (one-sided: see the note)",
+                   SMALL)],
+               ["mid-p estimate", f"{cf['estimate_mid_p']:.4f}",
+                _p("the same with the observed outcome counted half (Hirji, Tsiatis and "
+                   "Mehta 1989)", SMALL)],
                ["naive d/n (biased)", f"{cf['estimate_naive']:.4f}",
                 _p(_t(cf["estimate_naive_note"]), SMALL)]],
               [58 * mm, 40 * mm, 80 * mm], font=8.5),
+        _p(_t(cf["estimate_note"]), SMALL),
+        *([_p(_t(cf["recheck"]["note"]), SMALL)] if cf["recheck"]["note"] else []),
+        *([_p("<b>Looks.</b> " + _t(cf["looks"]["note"]), SMALL)]
+          if cf["looks"]["record_sizes_differ"] else []),
+        *[_p(f"<b>Plan warning ({_t(w['code'])}).</b> {_t(w['message'])}", SMALL)
+          for w in cf["warnings"]],
         _p("The plan and why its numbers mean what they mean", H2),
         _p(f"Plan <b>{_t(plan.get('name'))}</b>: p0 = {plan['p0']:g}, p1 = {plan['p1']:g}, "
            f"alpha = {plan['alpha']:g}, beta = {plan['beta']:g}"

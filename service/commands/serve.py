@@ -18,8 +18,14 @@ def export_settings(settings: Settings) -> None:
 def serve(settings: Settings, log_level: str = "info") -> int:
     import uvicorn
 
+    from ..plan_check import cache_file, check_plans
+    from ..plans import ConfigError
     from ..store import Store
 
+    try:   # a plan whose own figures are incomplete is refused before anything starts
+        check_plans(settings.plans, cache_file(settings.db_path))
+    except ConfigError as exc:
+        raise SystemExit(f"seqaudit: error: {exc}") from None
     Store(settings.db_path).migrate()  # once, before workers start
     export_settings(settings)
     uvicorn.run("service.api.app:app_from_env", factory=True, host=settings.host,

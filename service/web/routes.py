@@ -14,7 +14,6 @@ from ..cautions import ASSUMPTIONS, SIGNAL_NOT_VERDICT
 from ..errors import ServiceError
 from ..exports import file_safe
 from ..operations import Monitor
-from ..stats import PlanInputError
 from .sessions import (COOKIE, LOGIN_CSRF_COOKIE, BadCsrf, UiUser, check_csrf,
                        cookie_args, current_user, sign_in)
 from .svg import COLOURS, curve_chart, llr_bar, path_chart
@@ -147,11 +146,23 @@ def facility(request: Request, facility_id: str, cycle: int | None = None,
     alerts = m.alerts(facility_id=facility_id, limit=20)["items"]
     from .after_decision import after_decision_context
     from .draws import draws_context
+    looks = _looks(cyc, records)
     extra = after_decision_context(m, facility_id, cyc, records, bool(after), page_no, PAGE)
     records = extra.pop("records")
     return page(request, "facility.html", user, fac=fac, cyc=cyc, records=records, chart=chart,
                 alerts=alerts, msg=msg, kind=msg_kind, is_current=number == fac["cycle"],
-                draws_ctx=draws_context(m, facility_id, number), **extra)
+                draws_ctx=draws_context(m, facility_id, number), looks=looks, **extra)
+
+
+def _looks(cyc: dict, records: list[dict]) -> dict | None:
+    """The note and exact risks when the cycle's records differ from the plan's visit size."""
+    import json as _json
+    from ..casefile.build import looks_report_for
+    sizes = tuple(r["units"] for r in records if r["evidence"])
+    k = cyc["plan_snapshot"].get("visit_units", 1)
+    if not sizes or all(m == k for m in sizes):
+        return None
+    return looks_report_for(_json.dumps(cyc["plan_snapshot"], sort_keys=True), sizes)
 
 
 @router.post("/facilities/{facility_id}/records/{record_id:path}/void")
@@ -291,42 +302,23 @@ def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str =
               beta: str = "0.10", max_units: str = "", calibrate: str = "",
               register_size: str = "", register_false_flags: str = "",
               watch_arl0: str = "", watch_p1: str = "",
+              visit_units: str = "1", sensitivity: str = "1", specificity: str = "1",
+              rate: str = "", cut_llr: str = "0",
               user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+    from .workbench_form import compute_plan
     form = {"p0": p0, "p1": p1, "alpha": alpha, "beta": beta, "max_units": max_units,
             "calibrate": bool(calibrate), "register_size": register_size,
             "register_false_flags": register_false_flags, "watch_arl0": watch_arl0,
-            "watch_p1": watch_p1}
+            "watch_p1": watch_p1, "visit_units": visit_units,
+            "sensitivity": sensitivity, "specificity": specificity, "rate": rate,
+            "cut_llr": cut_llr}
     result, error, charts, register = None, None, None, None
     if "p0" in request.query_params:
-        from ..stats import design
-        try:
-            values = {k: float(form[k]) for k in ("p0", "p1", "alpha", "beta")}
-        except ValueError:
-            error = "p0, p1, alpha and beta must be numbers, e.g. 0.02"
-        else:
-            cap = None
-            if max_units.strip():
-                try:
-                    cap = int(max_units)
-                except ValueError:
-                    error = "The cap must be a whole number of units, or empty for none."
-            if error is None:
-                try:
-                    if register_size.strip() or register_false_flags.strip():
-                        from ..program import register_from_form
-                        res, register = register_from_form(values, register_size,
-                                                           register_false_flags, cap,
-                                                           bool(calibrate))
-                    else:
-                        res = design(**values, max_units=cap, calibrate=bool(calibrate))
-                    result = res.to_dict()
-                except PlanInputError as exc:
-                    error = f"{exc.argument}: {exc}"
-                except ValueError as exc:
-                    error = str(exc)
+        result, error, register = compute_plan(form)
         if result is not None:
             from .watch_form import watch_figures
-            result["watch"], error = watch_figures(values, watch_arl0, watch_p1)
+            result["watch"], error = watch_figures({"p0": float(p0), "p1": float(p1)},
+                                                   watch_arl0, watch_p1)
         if result is not None:
             p = result["plan"]
             charts = {
