@@ -18,6 +18,7 @@ from .clock import format_time, normalize_utc_text, parse_rfc3339, utc_now
 from .draw_rule import exclusion_text
 from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
+from .record_checks import OLD as OLD_RECORD, WORDS as OBSERVATION_WORDS
 from .schemas import FACILITY_ID_PATTERN, PRINTABLE, RFC3339_PATTERN, FacilityCreate, \
     RecordBatchCreate, RecordCreate
 from .watching import design_for
@@ -392,6 +393,10 @@ class Monitor:
             if out.detail:
                 result["errors"] = [{"field": _prefix(pos, batch) + (out.field or "body"),
                                      "message": out.detail}]
+            elif out.note == OLD_RECORD or (out.note and with_state):
+                # (when the cycle opened is standing: field keys hear only of old dates)
+                result["warnings"] = [{"field": _prefix(pos, batch) + "observed_at",
+                                       "message": OBSERVATION_WORDS[out.note]}]
             if with_state and out.status in ("accepted", "duplicate") and out.facility_id:
                 if out.facility_id not in states:
                     states[out.facility_id] = self.facility(out.facility_id, with_cycles=False)

@@ -197,6 +197,9 @@ class IngestResult(BaseModel):
     code: int
     seq: int | None = None
     errors: list[dict[str, Any]] | None = None
+    warnings: list[dict[str, Any]] | None = Field(
+        default=None, description="accepted, but worth a look (e.g. observed before its cycle "
+                                  "opened, or more than 365 days before it was received)")
     facility: FacilityPublic | None = None
 
 

@@ -6,6 +6,7 @@ from typing import NamedTuple
 
 from ..alerting import decision_alerts, void_alerts
 from ..errors import Conflict, NotFound
+from ..record_checks import observation_note, old_limit
 from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
 from .common import plan_of, rows_of, state_of, where_in
 from .frames import DrawMarks
@@ -48,6 +49,7 @@ class IngestOutcome(NamedTuple):
     facility_id: str | None = None
     detail: str | None = None
     field: str | None = None
+    note: str | None = None     # accepted, worth a look: service.record_checks' codes
 
 
 _INSERT_RECORDS = (
@@ -113,6 +115,7 @@ class RecordsMixin:
         cycles = self._current_cycles(conn, list({it.facility_id for it in items}))
         seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
         marks = DrawMarks(conn, items, cycles)              # drawn units of open cycles
+        oldest = old_limit(now)
         batch: dict[str, tuple[RecordIn, int]] = {}     # ids first seen in this job
         runs: dict[str, tuple[list, list, list, list]] = {}   # facility -> its new records
         inserts, alerts, outcomes = [], [], []
@@ -172,7 +175,9 @@ class RecordsMixin:
                             it.inspector, it.note, int(unit.excluded is None), key_label,
                             unit.draw_id, unit.order, unit.excluded))
             batch[rid] = (it, seq)
-            outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id))
+            outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id, None, None,
+                                          observation_note(it.observed_utc, cyc["opened_at"],
+                                                           oldest)))
         # each facility's new records in receipt order, as one run through the pure update
         decided, touched, signals = [], [], []
         for fid, (positions, seqs, units, bad) in runs.items():

@@ -145,13 +145,15 @@ def facility(request: Request, facility_id: str, cycle: int | None = None,
     chart = path_chart(points, cyc["lower_llr"], cyc["upper_llr"], decided, voids,
                        cyc["plan_snapshot"].get("max_units"))
     alerts = m.alerts(facility_id=facility_id, limit=20)["items"]
+    from ..record_checks import observation_notes
     from .after_decision import after_decision_context
     from .draws import draws_context
     extra = after_decision_context(m, facility_id, cyc, records, bool(after), page_no, PAGE)
     records = extra.pop("records")
     return page(request, "facility.html", user, fac=fac, cyc=cyc, records=records, chart=chart,
                 alerts=alerts, msg=msg, kind=msg_kind, is_current=number == fac["cycle"],
-                draws_ctx=draws_context(m, facility_id, number), **extra)
+                draws_ctx=draws_context(m, facility_id, number),
+                late=observation_notes(records, cyc["opened_at"]), **extra)
 
 
 @router.post("/facilities/{facility_id}/records/{record_id:path}/void")
