@@ -298,34 +298,29 @@ def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str =
             "calibrate": bool(calibrate), "register_size": register_size,
             "register_false_flags": register_false_flags, "watch_arl0": watch_arl0,
             "watch_p1": watch_p1}
-    result, error, charts, register = None, None, None, None
+    result, error, charts, register, field_errors = None, None, None, None, {}
     if "p0" in request.query_params:
         from ..stats import design
-        try:
-            values = {k: float(form[k]) for k in ("p0", "p1", "alpha", "beta")}
-        except ValueError:
-            error = "p0, p1, alpha and beta must be numbers, e.g. 0.02"
+        from .plan_form import read_plan_form, summary
+        args, field_errors = read_plan_form(form)
+        if field_errors:
+            error = summary(field_errors)
         else:
-            cap = None
-            if max_units.strip():
-                try:
-                    cap = int(max_units)
-                except ValueError:
-                    error = "The cap must be a whole number of units, or empty for none."
-            if error is None:
-                try:
-                    if register_size.strip() or register_false_flags.strip():
-                        from ..program import register_from_form
-                        res, register = register_from_form(values, register_size,
-                                                           register_false_flags, cap,
-                                                           bool(calibrate))
-                    else:
-                        res = design(**values, max_units=cap, calibrate=bool(calibrate))
-                    result = res.to_dict()
-                except PlanInputError as exc:
-                    error = f"{exc.argument}: {exc}"
-                except ValueError as exc:
-                    error = str(exc)
+            values = {k: args[k] for k in ("p0", "p1", "alpha", "beta")}
+            try:
+                if register_size.strip() or register_false_flags.strip():
+                    from ..program import register_from_form
+                    res, register = register_from_form(values, register_size,
+                                                       register_false_flags, args["max_units"],
+                                                       args["calibrate"])
+                else:
+                    res = design(**args)
+                result = res.to_dict()
+            except PlanInputError as exc:
+                field_errors = {exc.argument: str(exc)}
+                error = f"{exc.argument}: {exc}"
+            except ValueError as exc:
+                error = str(exc)
         if result is not None:
             from .watch_form import watch_figures
             result["watch"], error = watch_figures(values, watch_arl0, watch_p1)
@@ -339,4 +334,4 @@ def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str =
                                    "expected units to a decision", p["p0"], p["p1"],
                                    "Average sample number by true rate")}
     return page(request, "workbench.html", user, form=form, result=result, error=error,
-                charts=charts, register=register)
+                charts=charts, register=register, field_errors=field_errors)
