@@ -388,3 +388,6 @@ class CaseFilePublic(BaseModel):
     after_decision: dict[str, Any] | None = None
     watch: dict[str, Any] | None = None
     findings: list[FindingPublic] = []
+    software_version: str
+    document_id: str = Field(description="SHA-256 of this case file's canonical JSON "
+                                         "(service/casefile/docid.py); printed on every PDF page")
