@@ -77,7 +77,7 @@ def signin(request: Request, key: str = Form(""), csrf: str = Form(""),
     token, message = sign_in(m.store, key, m.clock())
     if token is None:
         fresh = secrets.token_urlsafe(24)
-        resp = page(request, "signin.html", None, status=401, csrf=fresh, msg=message)
+        resp = page(request, "signin.html", None, status=401, csrf=fresh, error=message)
         resp.set_cookie(LOGIN_CSRF_COOKIE, fresh, max_age=3600, **cookie_args(request))
         return resp
     resp = back("/ui/overview")
