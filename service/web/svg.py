@@ -84,8 +84,12 @@ class _Frame:
     def y(self, v):
         return self.top + (self.y1 - v) / (self.y1 - self.y0) * (self.h - self.top - self.bottom)
 
-    def axes(self, xlabel: str, ylabel: str, xticks=5, yticks=5, xwhole=False):
-        """Grid and tick labels at round values (whole numbers on the x axis if ``xwhole``)."""
+    def axes(self, xlabel: str, ylabel: str, xticks=5, yticks=5, xwhole=False, xfmt=None,
+             yfmt=None):
+        """Grid and tick labels at round values (whole numbers on the x axis if ``xwhole``).
+
+        ``xfmt``/``yfmt`` are accepted from older callers and not used: a tick's text has as
+        many decimals as the tick step needs."""
         parts = []
         xs = nice_ticks(self.x0, self.x1, xticks, whole=xwhole)
         xstep = xs[1] - xs[0] if len(xs) > 1 else 1.0
