@@ -19,8 +19,8 @@ from .draw_rule import exclusion_text
 from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
 from .record_checks import OLD as OLD_RECORD, WORDS as OBSERVATION_WORDS
-from .schemas import FACILITY_ID_PATTERN, PRINTABLE, RFC3339_PATTERN, FacilityCreate, \
-    RecordBatchCreate, RecordCreate
+from .schemas import DOT_IDS, ID_PATTERN, ID_RULE, PRINTABLE, RFC3339_PATTERN, \
+    FacilityCreate, RecordBatchCreate, RecordCreate
 from .watching import design_for
 from .stats import SprtPlan, design
 from .stats.calibrate import calibrate
@@ -49,7 +49,7 @@ def field_path(parts) -> str:
 PATTERN_WORDS = {
     RFC3339_PATTERN: "must be an RFC 3339 time with offset, e.g. 2026-11-07T08:00:00Z",
     PRINTABLE: "must not contain control characters (tabs, line breaks and the like)",
-    FACILITY_ID_PATTERN: "must not contain / or \\",
+    ID_PATTERN: ID_RULE,
 }
 
 
@@ -283,10 +283,16 @@ class Monitor:
     # -- records -----------------------------------------------------------------
     def _record_in(self, rec: RecordCreate, latest: str) -> RecordIn:
         """``latest``: the newest acceptable observed_at, as normalised UTC text."""
+        for name in ("record_id", "facility_id"):
+            if getattr(rec, name) in DOT_IDS:
+                raise Invalid(f"{name} {ID_RULE}", field=name)
         try:
             utc_text = normalize_utc_text(rec.observed_at)
         except ValueError as exc:
             raise Invalid(f"observed_at {exc}", field="observed_at") from None
+        except OverflowError:   # valid text whose UTC instant lies outside years 1-9999
+            raise Invalid(f"observed_at {rec.observed_at} lies outside the years 1 to 9999 "
+                          "once converted to UTC", field="observed_at") from None
         if utc_text > latest:
             raise Invalid(f"observed_at {rec.observed_at} lies in the future", field="observed_at")
         return RecordIn(rec.record_id, rec.facility_id, rec.observed_at, utc_text, rec.units,
@@ -425,7 +431,13 @@ class Monitor:
         return {"facility_id": facility_id, "cycle": number,
                 "items": [record_public(r) for r in rows]}
 
-    def void_record(self, record_id: str, reason: str, actor: Actor) -> dict:
+    def void_record(self, record_id: str, reason: str, actor: Actor,
+                    facility_id: str | None = None) -> dict:
+        """Void a record; with ``facility_id`` (the facility a page or URL names) only a
+        record of that facility (a record's facility never changes after it is stored)."""
+        if facility_id is not None and self.store.record(record_id)["facility_id"] != facility_id:
+            raise NotFound(f"{record_id!r} is not a record of facility {facility_id!r}",
+                           facility_id=facility_id)
         out = self.store.void_record(record_id, reason, self.clock(), actor)
         rec = out["record"]
         listed = {r["seq"]: r for r in self.store.records(rec["facility_id"], rec["cycle"])}

@@ -1,4 +1,5 @@
 from typing import Literal
+from urllib.parse import quote
 
 from fastapi import APIRouter, Depends, Query, Request, Response
 
@@ -18,7 +19,8 @@ Sort = Literal["facility_id", "name", "units", "last_record_at", "llr", "llr_pos
 def register(body: FacilityCreate, response: Response, actor=Depends(admin),
              m: Monitor = Depends(monitor)):
     out = m.register_facility(body, actor)
-    response.headers["Location"] = f"/v1/facilities/{body.facility_id}"
+    # one path segment, percent-encoded (a header value must be Latin-1; 'Łódź-1' is not)
+    response.headers["Location"] = f"/v1/facilities/{quote(body.facility_id, safe='')}"
     return out
 
 

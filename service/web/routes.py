@@ -4,7 +4,7 @@ from __future__ import annotations
 import math
 import secrets
 from pathlib import Path
-from urllib.parse import urlencode
+from urllib.parse import quote, urlencode
 
 from fastapi import APIRouter, Depends, Form, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
@@ -33,6 +33,15 @@ KIND_TEXT = {"flagged": "Flagged", "watch_signal": "Watch signal",
              "delivery_failed": "Delivery failed", "cleared": "Cleared",
              "cap_reached": "Cap reached"}
 templates.env.globals["kind_text"] = KIND_TEXT
+
+
+def segment(value) -> str:
+    """An id as one URL path segment: every reserved character percent-encoded, '/' too
+    (Jinja's urlencode filter leaves '/' as it is)."""
+    return quote(str(value), safe="")
+
+
+templates.env.filters["segment"] = segment
 PAGE = 50
 
 
@@ -156,16 +165,31 @@ def facility(request: Request, facility_id: str, cycle: int | None = None,
                 late=observation_notes(records, cyc["opened_at"]), **extra)
 
 
-@router.post("/facilities/{facility_id}/records/{record_id:path}/void")
-def void(request: Request, facility_id: str, record_id: str, reason: str = Form(""),
+@router.post("/facilities/{facility_id}/void")
+def void(request: Request, facility_id: str, record_id: str = Form(""), reason: str = Form(""),
          csrf: str = Form(""), cycle: int = Form(1), user: UiUser = Depends(current_user),
          m: Monitor = Depends(monitor)):
+    """The void form: the record id travels in the form, never in the path, so no id can
+    change which URL the browser posts to ('..' included)."""
     check_csrf(user, csrf)
-    target = f"/ui/facilities/{facility_id}?cycle={cycle}"
+    return _void(facility_id, record_id, reason, cycle, user, m)
+
+
+@router.post("/facilities/{facility_id}/records/{record_id:path}/void")
+def void_by_path(request: Request, facility_id: str, record_id: str, reason: str = Form(""),
+                 csrf: str = Form(""), cycle: int = Form(1),
+                 user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+    check_csrf(user, csrf)
+    return _void(facility_id, record_id, reason, cycle, user, m)
+
+
+def _void(facility_id: str, record_id: str, reason: str, cycle: int, user: UiUser,
+          m: Monitor) -> RedirectResponse:
+    target = f"/ui/facilities/{segment(facility_id)}?cycle={cycle}"
     if not reason.strip():
         return back(target, "A reason is required to void a record.", "error")
     try:
-        out = m.void_record(record_id, reason.strip(), user.actor)
+        out = m.void_record(record_id, reason.strip(), user.actor, facility_id=facility_id)
     except ServiceError as exc:
         return back(target, exc.detail, "error")
     note = " The decision was revised." if out["decision_revised"] else ""
@@ -198,22 +222,22 @@ def new_cycle(request: Request, facility_id: str, csrf: str = Form(""),
     try:
         fac = m.open_cycle(facility_id, user.actor)
     except ServiceError as exc:
-        return back(f"/ui/facilities/{facility_id}", exc.detail, "error")
-    return back(f"/ui/facilities/{facility_id}", f"Cycle {fac['cycle']} opened.")
+        return back(f"/ui/facilities/{segment(facility_id)}", exc.detail, "error")
+    return back(f"/ui/facilities/{segment(facility_id)}", f"Cycle {fac['cycle']} opened.")
 
 
 @router.post("/facilities/{facility_id}/close")
 def close(request: Request, facility_id: str, reason: str = Form(""), csrf: str = Form(""),
           user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
     check_csrf(user, csrf)
+    target = f"/ui/facilities/{segment(facility_id)}"
     if not reason.strip():
-        return back(f"/ui/facilities/{facility_id}", "A reason is required to close a cycle.",
-                    "error")
+        return back(target, "A reason is required to close a cycle.", "error")
     try:
         m.close_cycle(facility_id, reason.strip(), user.actor)
     except ServiceError as exc:
-        return back(f"/ui/facilities/{facility_id}", exc.detail, "error")
-    return back(f"/ui/facilities/{facility_id}", "Cycle closed without a decision.")
+        return back(target, exc.detail, "error")
+    return back(target, "Cycle closed without a decision.")
 
 
 @router.get("/facilities/{facility_id}/cycles/{cycle}/casefile.pdf")
