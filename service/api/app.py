@@ -14,7 +14,7 @@ from ..store import Store
 from ..version import software_version
 from .limits import BodyLimit, TokenBuckets
 from . import actions, alerts, casefiles, draws, facilities, findings, health, keys, \
-    metrics, plans, problems, records, webhooks
+    metrics, plans, problems, records, storage, webhooks
 from . import program as program_api
 
 DESCRIPTION = (
@@ -33,6 +33,8 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):
+        from ..inuse import hold_shared
+        in_use = hold_shared(settings.db_path)   # `seqaudit restore` refuses while held
         scheduler = http = None
         if settings.schedule.enabled:
             import httpx2
@@ -48,6 +50,7 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
                 scheduler.shutdown(wait=True)
                 http.close()
             store.close()
+            in_use.release()
 
     app = FastAPI(title="seqaudit", version=software_version(), description=DESCRIPTION,
                   lifespan=lifespan, docs_url=None, redoc_url=None)
@@ -56,9 +59,10 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     app.state.buckets = TokenBuckets(settings.rate_per_s, settings.rate_burst)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     problems.install(app)
+    storage.install(app)           # storage failures as 503 problems; /readyz
     # Routes are matched in the order they were added, one by one: the record route, which
     # takes almost all the traffic, goes first and the dashboard's many pages last.
-    for module in (records, health, facilities, findings, casefiles, draws, alerts, plans,
+    for module in (records, health, storage, facilities, findings, casefiles, draws, alerts, plans,
                    metrics, actions, keys, webhooks, program_api):
         app.include_router(module.router)
     from .docs import install_docs
