@@ -15,12 +15,36 @@ def export_settings(settings: Settings) -> None:
     os.environ["SEQAUDIT_WORKERS"] = str(settings.workers)
 
 
+def check_database(settings: Settings) -> str | None:
+    """Why the service cannot start on its database (one line), or None: opened, migrated
+    (once, before workers start) and not being restored."""
+    import sqlite3
+
+    from ..inuse import InUse, hold_shared
+    from ..store import Store
+    try:
+        hold_shared(settings.db_path).release()
+        store = Store(settings.db_path)
+        try:
+            store.migrate()
+        finally:
+            store.close()
+    except InUse as exc:
+        return str(exc)
+    except (sqlite3.Error, OSError) as exc:
+        return f"cannot open the database {settings.db_path}: {exc}"
+    return None
+
+
 def serve(settings: Settings, log_level: str = "info") -> int:
+    import sys
+
     import uvicorn
 
-    from ..store import Store
-
-    Store(settings.db_path).migrate()  # once, before workers start
+    problem = check_database(settings)
+    if problem is not None:
+        print(f"seqaudit serve: error: {problem}", file=sys.stderr)
+        return 1
     export_settings(settings)
     uvicorn.run("service.api.app:app_from_env", factory=True, host=settings.host,
                 port=settings.port, workers=settings.workers, log_level=log_level,
