@@ -35,11 +35,12 @@ class ScheduleSettings:
 class DeliverySettings:
     """[delivery]: webhook delivery with exponential backoff and jitter."""
 
-    timeout_s: float = 10.0
+    timeout_s: float = 10.0          # the whole attempt: connect, send, read the whole answer
     first_retry_s: float = 30.0      # the first retry comes within this (jittered down to half)
     max_delay_s: float = 3600.0
     give_up_after_s: float = 86_400.0
     batch: int = 50
+    parallel: int = 8                # subscriptions served at once (each one in order)
 
 
 @dataclass(frozen=True)

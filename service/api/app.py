@@ -35,20 +35,17 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     async def lifespan(app: FastAPI):
         from ..inuse import hold_shared
         in_use = hold_shared(settings.db_path)   # `seqaudit restore` refuses while held
-        scheduler = http = None
+        scheduler = None
         if settings.schedule.enabled:
-            import httpx2
-
             from ..scheduler import start_scheduler
-            http = httpx2.Client(timeout=settings.delivery.timeout_s, follow_redirects=False)
-            scheduler = start_scheduler(settings, monitor, http)
+            # each delivery run opens its own async client (None): see jobs/delivery.py
+            scheduler = start_scheduler(settings, monitor, None)
         app.state.scheduler = scheduler
         try:
             yield
         finally:
             if scheduler is not None:
                 scheduler.shutdown(wait=True)
-                http.close()
             store.close()
             in_use.release()
 
