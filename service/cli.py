@@ -274,7 +274,8 @@ def _add_import(sub, noun: str) -> None:
         store = Store(settings.db_path)
         store.migrate()
         monitor = Monitor(store=store, plans=PlanBook(settings.plans),
-                          max_batch=max(settings.max_batch, imports.BATCH))
+                          max_batch=max(settings.max_batch, imports.BATCH),
+                          max_record_units=settings.max_record_units)
         try:
             if noun == "facilities":
                 return imports.import_facilities(monitor, a.file, a.errors, sheet=a.sheet)

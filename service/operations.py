@@ -233,6 +233,7 @@ class Monitor:
     clock: Callable[[], str] = utc_now
     max_batch: int = 1000
     future_tolerance_s: float = 86_400.0
+    max_record_units: int = 10_000
 
     # -- facilities ------------------------------------------------------------
     def register_facility(self, body: FacilityCreate, actor: Actor) -> dict:
@@ -283,6 +284,10 @@ class Monitor:
     # -- records -----------------------------------------------------------------
     def _record_in(self, rec: RecordCreate, latest: str) -> RecordIn:
         """``latest``: the newest acceptable observed_at, as normalised UTC text."""
+        if rec.units > self.max_record_units:
+            raise Invalid(f"units must be at most {self.max_record_units} in one record "
+                          f"(the service's max_record_units), got {rec.units}; split it into "
+                          "several records", field="units")
         for name in ("record_id", "facility_id"):
             if getattr(rec, name) in DOT_IDS:
                 raise Invalid(f"{name} {ID_RULE}", field=name)
@@ -425,11 +430,15 @@ class Monitor:
         return {"index": index, "record_id": rid if isinstance(rid, str) else None,
                 "status": "invalid", "code": 422, "seq": None, "errors": errors}
 
-    def records(self, facility_id: str, cycle: int | None) -> dict:
+    def records(self, facility_id: str, cycle: int | None, limit: int | None = None,
+                offset: int = 0) -> dict:
+        """One page of a cycle's records (receipt order) with the LLR after each; all of
+        them when ``limit`` is None (exports)."""
         number = cycle if cycle is not None else self.store.facility(facility_id)["current_cycle"]
-        rows = self.store.records(facility_id, number)
+        rows, total = self.store.records_page(facility_id, number, limit, offset)
         return {"facility_id": facility_id, "cycle": number,
-                "items": [record_public(r) for r in rows]}
+                "items": [record_public(r) for r in rows], "total": total, "limit": limit,
+                "offset": offset}
 
     def void_record(self, record_id: str, reason: str, actor: Actor,
                     facility_id: str | None = None) -> dict:

@@ -207,6 +207,9 @@ class RecordList(BaseModel):
     facility_id: str
     cycle: int
     items: list[RecordPublic]
+    total: int
+    limit: int
+    offset: int
 
 
 class IngestResult(BaseModel):

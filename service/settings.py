@@ -57,6 +57,7 @@ class Settings:
     rate_per_s: float = 200.0                # per API key and worker; 0 turns the limit off
     rate_burst: float = 1000.0
     future_tolerance_s: float = 86_400.0     # observed_at at most this far ahead of the clock
+    max_record_units: int = 10_000           # units in one record (at most 100,000)
     plans: dict[str, PlanSpec] = field(default_factory=dict)
     schedule: ScheduleSettings = field(default_factory=ScheduleSettings)
     delivery: DeliverySettings = field(default_factory=DeliverySettings)
@@ -69,7 +70,11 @@ _SERVICE_KEYS = {"db": ("db_path", Path), "host": ("host", str), "port": ("port"
                  "workers": ("workers", int), "max_batch": ("max_batch", int),
                  "max_body_bytes": ("max_body_bytes", int),
                  "future_tolerance_s": ("future_tolerance_s", float),
-                 "rate_per_s": ("rate_per_s", float), "rate_burst": ("rate_burst", float)}
+                 "rate_per_s": ("rate_per_s", float), "rate_burst": ("rate_burst", float),
+                 "max_record_units": ("max_record_units", int)}
+
+#: The schema's own bound on ``units``; max_record_units may not exceed it.
+UNITS_HARD_LIMIT = 100_000
 
 
 def _coerce(name: str, kind, value, where: str):
@@ -133,6 +138,9 @@ def load_settings(config_path: str | Path | None = None, environ=None, **overrid
             values[name] = _coerce(ENV_PREFIX + key.upper(), kind, raw, "environment")
     values["schedule"] = _section(data, "schedule", ScheduleSettings, path)
     values["delivery"] = _section(data, "delivery", DeliverySettings, path)
+    if values.get("max_record_units", 0) > UNITS_HARD_LIMIT:
+        raise ConfigError(f"max_record_units may be at most {UNITS_HARD_LIMIT}, got "
+                          f"{values['max_record_units']}")
     settings = Settings(**values)
     known = {f.name for f in fields(Settings)}
     return settings.with_overrides(**{k: v for k, v in overrides.items() if k in known})

@@ -29,7 +29,8 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     store.migrate()
     monitor = Monitor(store=store, plans=PlanBook(settings.plans), clock=clock or utc_now,
                       max_batch=settings.max_batch,
-                      future_tolerance_s=settings.future_tolerance_s)
+                      future_tolerance_s=settings.future_tolerance_s,
+                      max_record_units=settings.max_record_units)
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):

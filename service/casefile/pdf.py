@@ -193,10 +193,15 @@ def render_pdf(cf: dict) -> bytes:
                  f"{cf['ci_low']:.4f} to {cf['ci_high']:.4f} (shaded); the rate axis reaches "
                  "all of them.", SMALL),
               PageBreak(),
-              _p("Every record of the cycle, in order of receipt", H2)]
+              _p("The records of the cycle in order of receipt: evidence and voids", H2)]
     rows = [["seq", "record id", "unit", "observed at", "units", "nc", "inspector",
              "LLR after", "status and note"]]
+    # records after the decision do not move it: summarised here (the JSON lists each), so
+    # a cycle with 100,000 of them still makes a short document
+    after = [r for r in cf["records"] if not r["void"] and not r["evidence"]]
     for r in cf["records"]:
+        if not r["void"] and not r["evidence"]:
+            continue
         cells = [str(r["seq"]), _t(r["record_id"]), _t(r["unit_ref"]), _ts(r["observed_at"]),
                  str(r["units"]), str(r["nonconforming"]), _t(r["inspector"]),
                  _fmt(r["llr_after"]),
@@ -212,6 +217,14 @@ def render_pdf(cf: dict) -> bytes:
         rows.append(cells)
     story.append(_grid(rows, [10 * mm, 26 * mm, 18 * mm, 30 * mm, 10 * mm, 8 * mm, 22 * mm,
                               15 * mm, 39 * mm]))
+    if after:
+        story.append(_p(
+            f"After the decision {len(after)} more record(s) arrived (seq {after[0]['seq']} to "
+            f"{after[-1]['seq']}, received {_t(after[0]['received_at'])} to "
+            f"{_t(after[-1]['received_at'])}): {sum(r['units'] for r in after)} units, "
+            f"{sum(r['nonconforming'] for r in after)} nonconforming. They are kept but are "
+            "not evidence for this cycle's decision; the JSON case file lists each of them.",
+            SMALL))
     from .draws_pdf import draws_story
     story += draws_story(cf.get("draws"))
     story += [_p("Action log of the cycle", H2)]

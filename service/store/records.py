@@ -284,6 +284,40 @@ class RecordsMixin:
             r["llr_after"] = llrs.get(r["seq"])
         return rows
 
+    def records_page(self, facility_id: str, cycle: int, limit: int | None, offset: int
+                     ) -> tuple[list[dict], int]:
+        """One page of a cycle's records in receipt order with the LLR after each, and the
+        number of records (``limit`` None: all); time and memory grow with the page, not
+        with the cycle (the LLR before the page is one sum in SQLite)."""
+        cyc = self.cycle(facility_id, cycle)
+        total = self.read("SELECT COUNT(*) AS n FROM records WHERE facility_id = ? AND "
+                          "cycle = ?", (facility_id, cycle))[0]["n"]
+        rows = self.read("SELECT * FROM records WHERE facility_id = ? AND cycle = ? ORDER BY "
+                         "seq LIMIT ? OFFSET ?",
+                         (facility_id, cycle, -1 if limit is None else limit, offset))
+        if not rows:
+            return rows, total
+        units, bad = self._conn().execute(
+            "SELECT COALESCE(SUM(units), 0), COALESCE(SUM(nonconforming), 0) FROM records "
+            "WHERE facility_id = ? AND cycle = ? AND seq < ? AND void = 0 AND counted = 1",
+            (facility_id, cycle, rows[0]["seq"])).fetchone()
+        plan = plan_of(cyc["plan_json"])
+        for r in rows:
+            if r["counted"] and not r["void"]:
+                units, bad = units + r["units"], bad + r["nonconforming"]
+                r["llr_after"] = float(plan.llr(units, bad))
+            else:
+                r["llr_after"] = None
+        return rows, total
+
+    def record_path(self, facility_id: str, cycle: int) -> list[tuple[int, int, int, int]]:
+        """(units, nonconforming, counted, void) of a cycle's evidence and void records in
+        receipt order: what its chart draws (records after the decision are left out)."""
+        return self._conn().execute(
+            "SELECT units, nonconforming, counted, void FROM records WHERE facility_id = ? AND "
+            "cycle = ? AND (counted = 1 OR void = 1) ORDER BY seq",
+            (facility_id, cycle)).fetchall()
+
     def record(self, record_id: str) -> dict:
         rows = self.read("SELECT * FROM records WHERE record_id = ?", (record_id,))
         if not rows:
