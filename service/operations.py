@@ -19,7 +19,7 @@ from .draw_rule import exclusion_text
 from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
 from .record_checks import OLD as OLD_RECORD, WORDS as OBSERVATION_WORDS
-from .schemas import DOT_IDS, ID_PATTERN, ID_RULE, PRINTABLE, RFC3339_PATTERN, \
+from .schemas import DOT_IDS, ID_PATTERN, ID_RULE, NO_NUL, PRINTABLE, RFC3339_PATTERN, \
     FacilityCreate, RecordBatchCreate, RecordCreate
 from .watching import design_for
 from .stats import SprtPlan, design
@@ -46,7 +46,14 @@ def field_path(parts) -> str:
 
 
 #: What a pattern means, in words, for the patterns of service/schemas.py.
+def _no_nul(text: str | None, field: str) -> None:
+    """Free text from forms (the API's schemas check the same): NUL is refused."""
+    if text is not None and "\x00" in text:
+        raise Invalid(f"{field} must not contain the NUL character", field=field)
+
+
 PATTERN_WORDS = {
+    NO_NUL: "must not contain the NUL character",
     RFC3339_PATTERN: "must be an RFC 3339 time with offset, e.g. 2026-11-07T08:00:00Z",
     PRINTABLE: "must not contain control characters (tabs, line breaks and the like)",
     ID_PATTERN: ID_RULE,
@@ -278,6 +285,7 @@ class Monitor:
         return self.facility(facility_id)
 
     def close_cycle(self, facility_id: str, reason: str, actor: Actor) -> dict:
+        _no_nul(reason, "reason")
         self.store.close_cycle(facility_id, reason, self.clock(), actor)
         return self.facility(facility_id)
 
@@ -444,6 +452,7 @@ class Monitor:
                     facility_id: str | None = None) -> dict:
         """Void a record; with ``facility_id`` (the facility a page or URL names) only a
         record of that facility (a record's facility never changes after it is stored)."""
+        _no_nul(reason, "reason")
         if facility_id is not None and self.store.record(record_id)["facility_id"] != facility_id:
             raise NotFound(f"{record_id!r} is not a record of facility {facility_id!r}",
                            facility_id=facility_id)
@@ -466,6 +475,7 @@ class Monitor:
         return self.store.ack_alerts(alert_ids, note, self.clock(), actor)
 
     def ack_alert(self, alert_id: int, note: str | None, actor: Actor) -> dict:
+        _no_nul(note, "note")
         return self.store.ack_alert(alert_id, note, self.clock(), actor)
 
     def actions(self, **filters) -> dict:

@@ -20,6 +20,9 @@ Role = Literal["field", "analyst", "admin"]
 # Printable text: no control characters (checked by pydantic-core's regex engine, which
 # keeps validation of 1000-record batches fast).
 PRINTABLE = r"^[^\x00-\x1f\x7f]*$"
+# Free text (notes, reasons) may hold line breaks, never NUL (it cuts strings short in C
+# tools, PDFs and terminals).
+NO_NUL = r"^[^\x00]*$"
 # Ids travel in URLs and on screens, so what could change their meaning there is refused:
 # path separators, C0/C1 control characters, bidirectional controls (U+061C, U+200E/F,
 # U+202A-U+202E, U+2066-U+2069), zero-width characters (U+200B-U+200D, U+2060, U+FEFF) and
@@ -58,7 +61,7 @@ class RecordCreate(_Strict):
     nonconforming: StrictInt = Field(ge=0, le=100_000)
     unit_ref: StrictStr | None = Field(default=None, max_length=200, pattern=PRINTABLE)
     inspector: StrictStr | None = Field(default=None, max_length=200, pattern=PRINTABLE)
-    note: StrictStr | None = Field(default=None, max_length=2000)
+    note: StrictStr | None = Field(default=None, max_length=2000, pattern=NO_NUL)
 
     @model_validator(mode="after")
     def _counts(self):
@@ -93,11 +96,11 @@ class FacilityCreate(_Strict):
 
 
 class ReasonCreate(_Strict):
-    reason: StrictStr = Field(min_length=1, max_length=2000)
+    reason: StrictStr = Field(min_length=1, max_length=2000, pattern=NO_NUL)
 
 
 class AckCreate(_Strict):
-    note: StrictStr | None = Field(default=None, max_length=2000)
+    note: StrictStr | None = Field(default=None, max_length=2000, pattern=NO_NUL)
 
 
 FindingOutcome = Literal["referred", "no_action", "records_corrected", "retraining_ordered",
@@ -124,7 +127,7 @@ class FindingPublic(BaseModel):
 
 class KeyCreate(_Strict):
     role: Role
-    label: StrictStr = Field(min_length=1, max_length=200)
+    label: StrictStr = Field(min_length=1, max_length=200, pattern=PRINTABLE)
 
 
 class CyclePublic(BaseModel):
@@ -310,7 +313,7 @@ class PlanPublic(BaseModel):
 
 
 class WebhookCreate(_Strict):
-    url: StrictStr = Field(min_length=8, max_length=2000, pattern=r"^https?://[^\s]+$")
+    url: StrictStr = Field(min_length=8, max_length=2000, pattern=r"^https?://[^\s\x00-\x1f\x7f]+$")
     secret: StrictStr | None = Field(default=None, description="whsec_ + base64; made if absent")
     kinds: list[WebhookKind] = Field(min_length=1)
 

@@ -58,6 +58,8 @@ class Settings:
     rate_burst: float = 1000.0
     future_tolerance_s: float = 86_400.0     # observed_at at most this far ahead of the clock
     max_record_units: int = 10_000           # units in one record (at most 100,000)
+    docs_public: bool = True                 # /docs, /redoc, /openapi.json without a key
+    request_read_timeout_s: float = 30.0     # a request's headers and body must arrive in this
     plans: dict[str, PlanSpec] = field(default_factory=dict)
     schedule: ScheduleSettings = field(default_factory=ScheduleSettings)
     delivery: DeliverySettings = field(default_factory=DeliverySettings)
@@ -71,13 +73,25 @@ _SERVICE_KEYS = {"db": ("db_path", Path), "host": ("host", str), "port": ("port"
                  "max_body_bytes": ("max_body_bytes", int),
                  "future_tolerance_s": ("future_tolerance_s", float),
                  "rate_per_s": ("rate_per_s", float), "rate_burst": ("rate_burst", float),
-                 "max_record_units": ("max_record_units", int)}
+                 "max_record_units": ("max_record_units", int),
+                 "docs_public": ("docs_public", bool),
+                 "request_read_timeout_s": ("request_read_timeout_s", float)}
 
 #: The schema's own bound on ``units``; max_record_units may not exceed it.
 UNITS_HARD_LIMIT = 100_000
 
 
+_TRUE, _FALSE = {"true", "1", "yes", "on"}, {"false", "0", "no", "off"}
+
+
 def _coerce(name: str, kind, value, where: str):
+    if kind is bool:
+        if isinstance(value, bool):
+            return value
+        word = str(value).strip().lower()
+        if word not in _TRUE | _FALSE:
+            raise ConfigError(f"{where}: {name} must be true or false, got {value!r}")
+        return word in _TRUE
     try:
         out = kind(value)
     except (TypeError, ValueError):

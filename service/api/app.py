@@ -50,8 +50,10 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
             store.close()
             in_use.release()
 
+    # docs_public = false: no /docs, /redoc or /openapi.json at all (404)
     app = FastAPI(title="seqaudit", version=software_version(), description=DESCRIPTION,
-                  lifespan=lifespan, docs_url=None, redoc_url=None)
+                  lifespan=lifespan, docs_url=None, redoc_url=None,
+                  openapi_url="/openapi.json" if settings.docs_public else None)
     app.state.settings = settings
     app.state.monitor = monitor
     app.state.buckets = TokenBuckets(settings.rate_per_s, settings.rate_burst)
@@ -64,7 +66,11 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
                    metrics, actions, keys, webhooks, program_api):
         app.include_router(module.router)
     from .docs import install_docs
-    install_docs(app)
+    if settings.docs_public:
+        install_docs(app)
+    else:
+        install_docs(app, docs_url=None, redoc_url=None)
+    records.define_body_schemas(app)
     from ..web.field_app import install_field_app
     from ..web.install import install_ui
     install_field_app(app)

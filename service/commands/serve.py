@@ -13,6 +13,7 @@ def export_settings(settings: Settings) -> None:
     os.environ["SEQAUDIT_HOST"] = settings.host
     os.environ["SEQAUDIT_PORT"] = str(settings.port)
     os.environ["SEQAUDIT_WORKERS"] = str(settings.workers)
+    os.environ["SEQAUDIT_REQUEST_READ_TIMEOUT_S"] = str(settings.request_read_timeout_s)
 
 
 def check_database(settings: Settings) -> str | None:
@@ -46,7 +47,9 @@ def serve(settings: Settings, log_level: str = "info") -> int:
         print(f"seqaudit serve: error: {problem}", file=sys.stderr)
         return 1
     export_settings(settings)
+    from ..api.read_deadline import DeadlineH11Protocol
+    # http=: each request's headers and body must arrive within request_read_timeout_s
     uvicorn.run("service.api.app:app_from_env", factory=True, host=settings.host,
                 port=settings.port, workers=settings.workers, log_level=log_level,
-                access_log=False)
+                access_log=False, http=DeadlineH11Protocol)
     return 0
