@@ -47,9 +47,9 @@ def serve(settings: Settings, log_level: str = "info") -> int:
         print(f"seqaudit serve: error: {problem}", file=sys.stderr)
         return 1
     export_settings(settings)
-    from ..api.read_deadline import DeadlineH11Protocol
-    # http=: each request's headers and body must arrive within request_read_timeout_s
+    # http=: each request's headers and body must arrive within request_read_timeout_s (an
+    # import path, which worker processes import themselves)
     uvicorn.run("service.api.app:app_from_env", factory=True, host=settings.host,
                 port=settings.port, workers=settings.workers, log_level=log_level,
-                access_log=False, http=DeadlineH11Protocol)
+                access_log=False, http="service.api.read_deadline:DeadlineH11Protocol")
     return 0
