@@ -143,3 +143,21 @@ def test_api_void_of_an_encoded_id(app, client, keys):
                     json={"reason": "test"}, headers=keys.header("analyst"))
     assert r.status_code == 200, r.text
     assert r.json()["record"]["record_id"] == "old/style?id#1"
+
+
+def test_download_names_of_non_latin1_ids_are_ascii(client, keys):
+    # A header value must be Latin-1: a facility id such as 'Łódź-2' in a download's
+    # Content-Disposition made the case file and the CSV exports answer 500.
+    client.post("/v1/facilities", json={"facility_id": "Łódź-2", "name": "Łódź depot",
+                                        "plan": "dispensers"}, headers=keys.header("admin"))
+    client.post("/v1/records", json={"records": [record("Łódź-2", f"lz-{i}", 1)
+                                                 for i in range(3)]},
+                headers=keys.header("field"))
+    seg = quote("Łódź-2", safe="")
+    r = client.get(f"/v1/facilities/{seg}/cycles/1/casefile.pdf", headers=keys.header("analyst"))
+    assert r.status_code == 200
+    assert 'filename="casefile-__d_-2-cycle1.pdf"' in r.headers["content-disposition"]
+    r = client.get("/v1/actions", params={"facility_id": "Łódź-2", "format": "csv"},
+                   headers=keys.header("admin"))
+    assert r.status_code == 200
+    r.headers["content-disposition"].encode("latin-1")
