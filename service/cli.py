@@ -218,24 +218,39 @@ def _add_import(sub, noun: str) -> None:
     p = sub.add_parser(noun, help=f"{noun} register tools")
     acts = p.add_subparsers(dest=f"{noun}_command", parser_class=_Parser, metavar="ACTION")
     acts.required = True
-    imp = acts.add_parser("import", help=f"load {noun} from a CSV file")
-    imp.add_argument("file")
+    imp = acts.add_parser("import", help=f"load {noun} from a CSV file or an .xlsx workbook")
+    imp.add_argument("file", help="FILE.csv or FILE.xlsx")
     _add_service_options(imp)
     imp.add_argument("--errors", default=None, help="write rejected rows to this CSV file")
+    imp.add_argument("--sheet", default=None, help=".xlsx: worksheet name (default: the first)")
+    if noun == "records":
+        imp.add_argument("--time-zone", default=None, metavar="ZONE",
+                         help=".xlsx: the zone spreadsheet date-times were written in (IANA "
+                              "name such as Europe/London, UTC, or +01:00); without it such "
+                              "cells are refused, never guessed")
 
     def run(a, parser):
         from .commands import imports
         from .operations import Monitor, PlanBook
         from .store import Store
 
+        if getattr(a, "time_zone", None):
+            from .commands.spreadsheets import parse_zone
+            try:
+                parse_zone(a.time_zone)
+            except ValueError as exc:
+                parser.error(f"argument --time-zone: {exc}")
         settings = _settings(a)
         store = Store(settings.db_path)
         store.migrate()
         monitor = Monitor(store=store, plans=PlanBook(settings.plans),
-                          max_batch=max(settings.max_batch, imports.BATCH))
-        fn = imports.import_facilities if noun == "facilities" else imports.import_records
+                          max_batch=max(settings.max_batch, imports.BATCH),
+                          max_record_units=settings.max_record_units)
         try:
-            return fn(monitor, a.file, a.errors)
+            if noun == "facilities":
+                return imports.import_facilities(monitor, a.file, a.errors, sheet=a.sheet)
+            return imports.import_records(monitor, a.file, a.errors, time_zone=a.time_zone,
+                                          sheet=a.sheet)
         except (OSError, ValueError) as exc:
             parser.error(str(exc))
 

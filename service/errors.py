@@ -27,3 +27,15 @@ class Invalid(ServiceError):
 
 class TooLarge(ServiceError):
     status, slug, title = 413, "too-large", "Request too large"
+
+
+class Unavailable(ServiceError):
+    """The service cannot do this now for a reason outside the request (storage trouble)."""
+
+    status, slug, title = 503, "unavailable", "Service unavailable"
+
+    def __init__(self, detail: str, slug: str = "unavailable", retry_after_s: int | None = None,
+                 **extra):
+        super().__init__(detail, **extra)
+        self.slug = slug
+        self.retry_after_s = retry_after_s

@@ -20,7 +20,20 @@ Role = Literal["field", "analyst", "admin"]
 # Printable text: no control characters (checked by pydantic-core's regex engine, which
 # keeps validation of 1000-record batches fast).
 PRINTABLE = r"^[^\x00-\x1f\x7f]*$"
-FACILITY_ID_PATTERN = r"^[^/\\]+$"
+# Free text (notes, reasons) may hold line breaks, never NUL (it cuts strings short in C
+# tools, PDFs and terminals).
+NO_NUL = r"^[^\x00]*$"
+# Ids travel in URLs and on screens, so what could change their meaning there is refused:
+# path separators, C0/C1 control characters, bidirectional controls (U+061C, U+200E/F,
+# U+202A-U+202E, U+2066-U+2069), zero-width characters (U+200B-U+200D, U+2060, U+FEFF) and
+# white space at either end. The ids "." and ".." are refused by the checks that read them
+# (the regex engines here have no look-ahead). Both pydantic-core's engine and Python's re
+# read this pattern (the OpenAPI document carries it).
+ID_FORBIDDEN = r"\x00-\x1f\x7f-\x9f/\\\u061c\u200b-\u200f\u202a-\u202e\u2060-\u2069\ufeff"
+ID_PATTERN = rf"^[^\s{ID_FORBIDDEN}](?:[^{ID_FORBIDDEN}]*[^\s{ID_FORBIDDEN}])?$"
+ID_RULE = ("must not contain '/', '\\', control, bidirectional or zero-width characters, "
+           "nor begin or end with a space, nor be '.' or '..'")
+DOT_IDS = frozenset({".", ".."})
 RFC3339_PATTERN = (r"^\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}:\d{2}(\.\d{1,9})?([Zz]|[+-]\d{2}:\d{2})$")
 
 
@@ -37,9 +50,10 @@ class _Strict(BaseModel):
 class RecordCreate(_Strict):
     """One re-check of one unit (or a few units) of a facility."""
 
-    record_id: StrictStr = Field(min_length=1, max_length=64, pattern=PRINTABLE,
-                                 description="client-made idempotency key (no control characters)")
-    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=PRINTABLE)
+    record_id: StrictStr = Field(min_length=1, max_length=64, pattern=ID_PATTERN,
+                                 description="client-made idempotency key; " + ID_RULE)
+    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=ID_PATTERN,
+                                   description=ID_RULE)
     observed_at: StrictStr = Field(pattern=RFC3339_PATTERN, max_length=40,
                                    description="RFC 3339 date-time with offset, e.g. "
                                                "2026-03-01T09:30:00Z")
@@ -47,7 +61,7 @@ class RecordCreate(_Strict):
     nonconforming: StrictInt = Field(ge=0, le=100_000)
     unit_ref: StrictStr | None = Field(default=None, max_length=200, pattern=PRINTABLE)
     inspector: StrictStr | None = Field(default=None, max_length=200, pattern=PRINTABLE)
-    note: StrictStr | None = Field(default=None, max_length=2000)
+    note: StrictStr | None = Field(default=None, max_length=2000, pattern=NO_NUL)
 
     @model_validator(mode="after")
     def _counts(self):
@@ -62,23 +76,31 @@ class RecordBatchCreate(_Strict):
 
 
 class FacilityCreate(_Strict):
-    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=FACILITY_ID_PATTERN)
+    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=ID_PATTERN,
+                                   description=ID_RULE)
     name: StrictStr = Field(min_length=1, max_length=200)
     plan: StrictStr = Field(min_length=1, max_length=64)
     region: StrictStr | None = Field(default=None, min_length=1, max_length=64)
 
-    @field_validator("facility_id", "name", "region")
+    @field_validator("facility_id")
+    @classmethod
+    def _not_dots(cls, value):
+        if value in DOT_IDS:
+            raise ValueError(f"facility_id {ID_RULE}")
+        return value
+
+    @field_validator("name", "region")
     @classmethod
     def _no_controls(cls, value, info):
         return value if value is None else _printable(value, info.field_name)
 
 
 class ReasonCreate(_Strict):
-    reason: StrictStr = Field(min_length=1, max_length=2000)
+    reason: StrictStr = Field(min_length=1, max_length=2000, pattern=NO_NUL)
 
 
 class AckCreate(_Strict):
-    note: StrictStr | None = Field(default=None, max_length=2000)
+    note: StrictStr | None = Field(default=None, max_length=2000, pattern=NO_NUL)
 
 
 FindingOutcome = Literal["referred", "no_action", "records_corrected", "retraining_ordered",
@@ -105,7 +127,7 @@ class FindingPublic(BaseModel):
 
 class KeyCreate(_Strict):
     role: Role
-    label: StrictStr = Field(min_length=1, max_length=200)
+    label: StrictStr = Field(min_length=1, max_length=200, pattern=PRINTABLE)
 
 
 class CyclePublic(BaseModel):
@@ -188,6 +210,9 @@ class RecordList(BaseModel):
     facility_id: str
     cycle: int
     items: list[RecordPublic]
+    total: int
+    limit: int
+    offset: int
 
 
 class IngestResult(BaseModel):
@@ -197,6 +222,9 @@ class IngestResult(BaseModel):
     code: int
     seq: int | None = None
     errors: list[dict[str, Any]] | None = None
+    warnings: list[dict[str, Any]] | None = Field(
+        default=None, description="accepted, but worth a look (e.g. observed before its cycle "
+                                  "opened, or more than 365 days before it was received)")
     facility: FacilityPublic | None = None
 
 
@@ -293,7 +321,7 @@ class PlanPublic(BaseModel):
 
 
 class WebhookCreate(_Strict):
-    url: StrictStr = Field(min_length=8, max_length=2000, pattern=r"^https?://[^\s]+$")
+    url: StrictStr = Field(min_length=8, max_length=2000, pattern=r"^https?://[^\s\x00-\x1f\x7f]+$")
     secret: StrictStr | None = Field(default=None, description="whsec_ + base64; made if absent")
     kinds: list[WebhookKind] = Field(min_length=1)
 
@@ -398,3 +426,6 @@ class CaseFilePublic(BaseModel):
     after_decision: dict[str, Any] | None = None
     watch: dict[str, Any] | None = None
     findings: list[FindingPublic] = []
+    software_version: str
+    document_id: str = Field(description="SHA-256 of this case file's canonical JSON "
+                                         "(service/casefile/docid.py); printed on every PDF page")

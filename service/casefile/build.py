@@ -12,6 +12,7 @@ from ..stats import Recheck, design_plan
 from ..stats.inference import infer
 from ..stats.looks import looks_figures, sizes_differ
 from ..store import Store, plan_from_snapshot
+from .docid import with_document_id
 from .draws import draws_section
 
 NOT_CHECKED = [
@@ -81,16 +82,22 @@ def looks_report(plan, snap: dict, sizes: list[int]) -> dict:
     return out
 
 
-def explain_plan(snap: dict) -> dict[str, str]:
+def explain_plan(snap: dict, exact: dict | None = None) -> dict[str, str]:
+    """What p0, p1, alpha, beta (and the cap) mean, in words, with this plan's exact risks."""
     pct = lambda x: f"{100 * x:.3g} %"
+    exact_pct = lambda x: f"{100 * x:.4g} %"
+    alpha = (f"exactly {exact_pct(exact['alpha'])} for this plan (it was designed for "
+             f"{pct(snap['alpha'])})" if exact else f"about {pct(snap['alpha'])}")
+    beta = (f"exactly {exact_pct(exact['beta'])} for this plan (it was designed for "
+            f"{pct(snap['beta'])})" if exact else f"about {pct(snap['beta'])}")
     out = {
         "p0": f"{pct(snap['p0'])} of passed units nonconforming is the rate this plan treats as "
               "tolerable (H0).",
         "p1": f"{pct(snap['p1'])} nonconforming is the rate worth acting on (H1).",
         "alpha": f"A facility whose true rate is {pct(snap['p0'])} is flagged with probability "
-                 f"about {pct(snap['alpha'])} (designed risk of a false flag).",
+                 f"{alpha} (risk of a false flag).",
         "beta": f"A facility whose true rate is {pct(snap['p1'])} is cleared with probability "
-                f"about {pct(snap['beta'])} (designed risk of missing it).",
+                f"{beta} (risk of missing it).",
     }
     if snap.get("visit_units", 1) != 1:
         out["visit_units"] = (f"The plan's figures assume the boundaries are looked at after "
@@ -143,7 +150,7 @@ def build_casefile(store: Store, facility_id: str, cycle: int | None = None,
     actions, _ = store.actions(limit=10_000, facility_id=facility_id, cycle=number)
     from .after import after_decision
     after = after_decision(store, facility_id, number, cyc, snap)
-    return {
+    cf = {
         **after,
         "facility": {"facility_id": fac["facility_id"], "name": fac["name"],
                      "plan": fac["plan"], "registered_at": fac["created_at"]},
@@ -182,7 +189,7 @@ def build_casefile(store: Store, facility_id: str, cycle: int | None = None,
                  "first_clear_units": figures["exact"]["first_clear_units"],
                  "h1": figures["boundaries"]["h1"], "h2": figures["boundaries"]["h2"],
                  "s": figures["boundaries"]["s"]},
-        "plan_explained": explain_plan(snap),
+        "plan_explained": explain_plan(snap, figures["exact"]),
         "cycle_state": cycle_public(cyc),
         "records": [record_public(r) for r in rows],
         "draws": draws_section(store, facility_id, number, rows, snap),
@@ -194,3 +201,4 @@ def build_casefile(store: Store, facility_id: str, cycle: int | None = None,
         "not_checked": NOT_CHECKED,
         "generated_at": utc_now(),
     }
+    return with_document_id(cf)

@@ -61,10 +61,13 @@ class StoreBase:
         conn.execute("BEGIN IMMEDIATE")
         try:
             yield conn
+            conn.execute("COMMIT")
         except BaseException:
-            conn.execute("ROLLBACK")
+            # SQLite may have rolled back already (it does on SQLITE_FULL): a ROLLBACK
+            # then would fail and hide the error that matters
+            if conn.in_transaction:
+                conn.execute("ROLLBACK")
             raise
-        conn.execute("COMMIT")
 
     def read(self, sql: str, params=()) -> list[dict]:
         return rows_of(self._conn().execute(sql, params))

@@ -36,11 +36,18 @@ class KeysMixin:
 
     def revoke_key(self, key_id: int, now: str, actor=("cli", "admin")) -> dict:
         with self.write() as conn:
-            row = conn.execute("SELECT revoked_at FROM keys WHERE id = ?", (key_id,)).fetchone()
+            row = conn.execute("SELECT revoked_at, role FROM keys WHERE id = ?",
+                               (key_id,)).fetchone()
             if row is None:
                 raise NotFound(f"no key with id {key_id}")
             if row[0] is not None:
                 raise Conflict(f"key {key_id} was already revoked at {row[0]}")
+            if row[1] == "admin" and conn.execute(
+                    "SELECT COUNT(*) FROM keys WHERE role = 'admin' AND revoked_at IS NULL "
+                    "AND id != ?", (key_id,)).fetchone()[0] == 0:
+                # checked inside the write transaction: two admins cannot revoke each other
+                raise Conflict(f"key {key_id} is the last active admin key; revoking it would "
+                               "lock every admin out. Create another admin key first.")
             conn.execute("UPDATE keys SET revoked_at = ? WHERE id = ?", (now, key_id))
             self._log(conn, now, actor, "key_revoked", {"key_id": key_id}, target=str(key_id))
         return self.key(key_id)

@@ -6,6 +6,7 @@ from typing import NamedTuple
 
 from ..alerting import decision_alerts, void_alerts
 from ..errors import Conflict, NotFound
+from ..record_checks import observation_note, old_limit
 from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
 from .common import plan_of, rows_of, state_of, where_in
 from .frames import DrawMarks
@@ -48,6 +49,7 @@ class IngestOutcome(NamedTuple):
     facility_id: str | None = None
     detail: str | None = None
     field: str | None = None
+    note: str | None = None     # accepted, worth a look: service.record_checks' codes
 
 
 _INSERT_RECORDS = (
@@ -113,6 +115,7 @@ class RecordsMixin:
         cycles = self._current_cycles(conn, list({it.facility_id for it in items}))
         seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
         marks = DrawMarks(conn, items, cycles)              # drawn units of open cycles
+        oldest = old_limit(now)
         batch: dict[str, tuple[RecordIn, int]] = {}     # ids first seen in this job
         runs: dict[str, tuple[list, list, list, list]] = {}   # facility -> its new records
         inserts, alerts, outcomes = [], [], []
@@ -172,7 +175,9 @@ class RecordsMixin:
                             it.inspector, it.note, int(unit.excluded is None), key_label,
                             unit.draw_id, unit.order, unit.excluded))
             batch[rid] = (it, seq)
-            outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id))
+            outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id, None, None,
+                                          observation_note(it.observed_utc, cyc["opened_at"],
+                                                           oldest)))
         # each facility's new records in receipt order, as one run through the pure update
         decided, touched, signals = [], [], []
         for fid, (positions, seqs, units, bad) in runs.items():
@@ -278,6 +283,40 @@ class RecordsMixin:
         for r in rows:
             r["llr_after"] = llrs.get(r["seq"])
         return rows
+
+    def records_page(self, facility_id: str, cycle: int, limit: int | None, offset: int
+                     ) -> tuple[list[dict], int]:
+        """One page of a cycle's records in receipt order with the LLR after each, and the
+        number of records (``limit`` None: all); time and memory grow with the page, not
+        with the cycle (the LLR before the page is one sum in SQLite)."""
+        cyc = self.cycle(facility_id, cycle)
+        total = self.read("SELECT COUNT(*) AS n FROM records WHERE facility_id = ? AND "
+                          "cycle = ?", (facility_id, cycle))[0]["n"]
+        rows = self.read("SELECT * FROM records WHERE facility_id = ? AND cycle = ? ORDER BY "
+                         "seq LIMIT ? OFFSET ?",
+                         (facility_id, cycle, -1 if limit is None else limit, offset))
+        if not rows:
+            return rows, total
+        units, bad = self._conn().execute(
+            "SELECT COALESCE(SUM(units), 0), COALESCE(SUM(nonconforming), 0) FROM records "
+            "WHERE facility_id = ? AND cycle = ? AND seq < ? AND void = 0 AND counted = 1",
+            (facility_id, cycle, rows[0]["seq"])).fetchone()
+        plan = plan_of(cyc["plan_json"])
+        for r in rows:
+            if r["counted"] and not r["void"]:
+                units, bad = units + r["units"], bad + r["nonconforming"]
+                r["llr_after"] = float(plan.llr(units, bad))
+            else:
+                r["llr_after"] = None
+        return rows, total
+
+    def record_path(self, facility_id: str, cycle: int) -> list[tuple[int, int, int, int]]:
+        """(units, nonconforming, counted, void) of a cycle's evidence and void records in
+        receipt order: what its chart draws (records after the decision are left out)."""
+        return self._conn().execute(
+            "SELECT units, nonconforming, counted, void FROM records WHERE facility_id = ? AND "
+            "cycle = ? AND (counted = 1 OR void = 1) ORDER BY seq",
+            (facility_id, cycle)).fetchall()
 
     def record(self, record_id: str) -> dict:
         rows = self.read("SELECT * FROM records WHERE record_id = ?", (record_id,))

@@ -4,7 +4,7 @@ from __future__ import annotations
 import math
 import secrets
 from pathlib import Path
-from urllib.parse import urlencode
+from urllib.parse import quote, urlencode
 
 from fastapi import APIRouter, Depends, Form, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
@@ -32,6 +32,15 @@ KIND_TEXT = {"flagged": "Flagged", "watch_signal": "Watch signal",
              "delivery_failed": "Delivery failed", "cleared": "Cleared",
              "cap_reached": "Cap reached"}
 templates.env.globals["kind_text"] = KIND_TEXT
+
+
+def segment(value) -> str:
+    """An id as one URL path segment: every reserved character percent-encoded, '/' too
+    (Jinja's urlencode filter leaves '/' as it is)."""
+    return quote(str(value), safe="")
+
+
+templates.env.filters["segment"] = segment
 PAGE = 50
 
 
@@ -76,7 +85,7 @@ def signin(request: Request, key: str = Form(""), csrf: str = Form(""),
     token, message = sign_in(m.store, key, m.clock())
     if token is None:
         fresh = secrets.token_urlsafe(24)
-        resp = page(request, "signin.html", None, status=401, csrf=fresh, msg=message)
+        resp = page(request, "signin.html", None, status=401, csrf=fresh, error=message)
         resp.set_cookie(LOGIN_CSRF_COOKIE, fresh, max_age=3600, **cookie_args(request))
         return resp
     resp = back("/ui/overview")
@@ -144,6 +153,7 @@ def facility(request: Request, facility_id: str, cycle: int | None = None,
     chart = path_chart(points, cyc["lower_llr"], cyc["upper_llr"], decided, voids,
                        cyc["plan_snapshot"].get("max_units"))
     alerts = m.alerts(facility_id=facility_id, limit=20)["items"]
+    from ..record_checks import observation_notes
     from .after_decision import after_decision_context
     from .draws import draws_context
     looks = _looks(cyc, records)
@@ -151,7 +161,8 @@ def facility(request: Request, facility_id: str, cycle: int | None = None,
     records = extra.pop("records")
     return page(request, "facility.html", user, fac=fac, cyc=cyc, records=records, chart=chart,
                 alerts=alerts, msg=msg, kind=msg_kind, is_current=number == fac["cycle"],
-                draws_ctx=draws_context(m, facility_id, number), looks=looks, **extra)
+                draws_ctx=draws_context(m, facility_id, number), looks=looks,
+                late=observation_notes(records, cyc["opened_at"]), **extra)
 
 
 def _looks(cyc: dict, records: list[dict]) -> dict | None:
@@ -165,16 +176,31 @@ def _looks(cyc: dict, records: list[dict]) -> dict | None:
     return looks_report_for(_json.dumps(cyc["plan_snapshot"], sort_keys=True), sizes)
 
 
-@router.post("/facilities/{facility_id}/records/{record_id:path}/void")
-def void(request: Request, facility_id: str, record_id: str, reason: str = Form(""),
+@router.post("/facilities/{facility_id}/void")
+def void(request: Request, facility_id: str, record_id: str = Form(""), reason: str = Form(""),
          csrf: str = Form(""), cycle: int = Form(1), user: UiUser = Depends(current_user),
          m: Monitor = Depends(monitor)):
+    """The void form: the record id travels in the form, never in the path, so no id can
+    change which URL the browser posts to ('..' included)."""
     check_csrf(user, csrf)
-    target = f"/ui/facilities/{facility_id}?cycle={cycle}"
+    return _void(facility_id, record_id, reason, cycle, user, m)
+
+
+@router.post("/facilities/{facility_id}/records/{record_id:path}/void")
+def void_by_path(request: Request, facility_id: str, record_id: str, reason: str = Form(""),
+                 csrf: str = Form(""), cycle: int = Form(1),
+                 user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+    check_csrf(user, csrf)
+    return _void(facility_id, record_id, reason, cycle, user, m)
+
+
+def _void(facility_id: str, record_id: str, reason: str, cycle: int, user: UiUser,
+          m: Monitor) -> RedirectResponse:
+    target = f"/ui/facilities/{segment(facility_id)}?cycle={cycle}"
     if not reason.strip():
         return back(target, "A reason is required to void a record.", "error")
     try:
-        out = m.void_record(record_id, reason.strip(), user.actor)
+        out = m.void_record(record_id, reason.strip(), user.actor, facility_id=facility_id)
     except ServiceError as exc:
         return back(target, exc.detail, "error")
     note = " The decision was revised." if out["decision_revised"] else ""
@@ -207,22 +233,22 @@ def new_cycle(request: Request, facility_id: str, csrf: str = Form(""),
     try:
         fac = m.open_cycle(facility_id, user.actor)
     except ServiceError as exc:
-        return back(f"/ui/facilities/{facility_id}", exc.detail, "error")
-    return back(f"/ui/facilities/{facility_id}", f"Cycle {fac['cycle']} opened.")
+        return back(f"/ui/facilities/{segment(facility_id)}", exc.detail, "error")
+    return back(f"/ui/facilities/{segment(facility_id)}", f"Cycle {fac['cycle']} opened.")
 
 
 @router.post("/facilities/{facility_id}/close")
 def close(request: Request, facility_id: str, reason: str = Form(""), csrf: str = Form(""),
           user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
     check_csrf(user, csrf)
+    target = f"/ui/facilities/{segment(facility_id)}"
     if not reason.strip():
-        return back(f"/ui/facilities/{facility_id}", "A reason is required to close a cycle.",
-                    "error")
+        return back(target, "A reason is required to close a cycle.", "error")
     try:
         m.close_cycle(facility_id, reason.strip(), user.actor)
     except ServiceError as exc:
-        return back(f"/ui/facilities/{facility_id}", exc.detail, "error")
-    return back(f"/ui/facilities/{facility_id}", "Cycle closed without a decision.")
+        return back(target, exc.detail, "error")
+    return back(target, "Cycle closed without a decision.")
 
 
 @router.get("/facilities/{facility_id}/cycles/{cycle}/casefile.pdf")
@@ -312,9 +338,14 @@ def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str =
             "watch_p1": watch_p1, "visit_units": visit_units,
             "sensitivity": sensitivity, "specificity": specificity, "rate": rate,
             "cut_llr": cut_llr}
-    result, error, charts, register = None, None, None, None
+    result, error, charts, register, field_errors = None, None, None, None, {}
     if "p0" in request.query_params:
-        result, error, register = compute_plan(form)
+        from .plan_form import read_plan_form, summary
+        _, field_errors = read_plan_form(form)      # every wrong base field named at once
+        if field_errors:
+            error = summary(field_errors)
+        else:
+            result, error, register = compute_plan(form)
         if result is not None:
             from .watch_form import watch_figures
             result["watch"], error = watch_figures({"p0": float(p0), "p1": float(p1)},
@@ -329,4 +360,4 @@ def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str =
                                    "expected units to a decision", p["p0"], p["p1"],
                                    "Average sample number by true rate")}
     return page(request, "workbench.html", user, form=form, result=result, error=error,
-                charts=charts, register=register)
+                charts=charts, register=register, field_errors=field_errors)
