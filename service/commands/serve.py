@@ -51,8 +51,7 @@ def serve(settings: Settings, log_level: str = "info") -> int:
     try:   # a plan whose own figures are incomplete is refused before anything starts
         check_plans(settings.plans, cache_file(settings.db_path))
     except ConfigError as exc:
-        print(f"seqaudit serve: error: {exc}", file=sys.stderr)
-        return 1
+        raise SystemExit(f"seqaudit serve: error: {exc}") from None
     export_settings(settings)
     # http=: each request's headers and body must arrive within request_read_timeout_s (an
     # import path, which worker processes import themselves)
