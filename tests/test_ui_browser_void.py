@@ -55,6 +55,7 @@ def test_void_of_the_attackers_record_leaves_the_other_facility_flagged(browser,
     try:
         sign_in(pg, server, keys.analyst)
         pg.wait_for_url(re.compile(r"/ui/overview"))
+        pg.on("dialog", lambda dialog: dialog.accept())   # void asks for confirmation
         pg.goto(server.url + "/ui/facilities/VIC-1")
         assert pg.inner_text("#cycle-status") == "Flagged"
         pg.goto(server.url + "/ui/facilities/ATT-1")

@@ -230,8 +230,8 @@ def render_pdf(cf: dict) -> bytes:
     if after:
         story.append(_p(
             f"After the decision {len(after)} more record(s) arrived (seq {after[0]['seq']} to "
-            f"{after[-1]['seq']}, received {_t(after[0]['received_at'])} to "
-            f"{_t(after[-1]['received_at'])}): {sum(r['units'] for r in after)} units, "
+            f"{after[-1]['seq']}, received {_ts(after[0]['received_at'])} to "
+            f"{_ts(after[-1]['received_at'])}): {sum(r['units'] for r in after)} units, "
             f"{sum(r['nonconforming'] for r in after)} nonconforming. They are kept but are "
             "not evidence for this cycle's decision; the JSON case file lists each of them.",
             SMALL))
