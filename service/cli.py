@@ -224,6 +224,9 @@ def _add_keys(sub) -> None:
     _add_service_options(add)
     add.add_argument("--role", required=True, choices=("field", "analyst", "admin"))
     add.add_argument("--label", required=True)
+    add.add_argument("--expires", default=None, metavar="WHEN",
+                     help="the key stops working after this long (e.g. 90d, 12h, 2w) or at "
+                          "this RFC 3339 time")
     lst = ks.add_parser("list", help="list keys (never the keys themselves)")
     _add_service_options(lst)
     rev = ks.add_parser("revoke", help="revoke a key by id")
@@ -235,7 +238,7 @@ def _add_keys(sub) -> None:
             from .commands import keys as k
             db = _existing_db(a, parser, create=name == "add")
             if name == "add":
-                return k.add(db, a.role, a.label)
+                return k.add(db, a.role, a.label, a.expires)
             return k.list_keys(db) if name == "list" else k.revoke(db, a.key_id)
         return run
 

@@ -106,6 +106,9 @@ class FindingPublic(BaseModel):
 class KeyCreate(_Strict):
     role: Role
     label: StrictStr = Field(min_length=1, max_length=200)
+    expires_at: StrictStr | None = Field(
+        None, max_length=64, description="RFC 3339 date-time at which the key stops working "
+        "(optional; in the future)")
 
 
 class CyclePublic(BaseModel):
@@ -254,6 +257,7 @@ class KeyPublic(BaseModel):
     prefix: str | None
     created_at: str
     revoked_at: str | None
+    expires_at: str | None = None
 
 
 class KeyCreated(KeyPublic):
