@@ -310,11 +310,14 @@ def _add_backup(sub) -> None:
 
 
 def _add_casefile(sub) -> None:
-    p = sub.add_parser("casefile", help="write the case file of a decided cycle (.pdf or .json)")
-    p.add_argument("facility_id")
+    p = sub.add_parser("casefile", help="write the case file of a decided cycle (.pdf or .json), "
+                                        "or --check one against the database")
+    p.add_argument("facility_id", nargs="?")
     p.add_argument("--cycle", type=_unit_count, default=None,
                    help="cycle number (default: the current cycle)")
-    p.add_argument("--out", required=True, help="FILE.pdf or FILE.json")
+    p.add_argument("--out", default=None, help="FILE.pdf or FILE.json (needed to write one)")
+    p.add_argument("--check", default=None, metavar="FILE.json",
+                   help="confirm this JSON case file against the database (exit 0 or 1)")
     p.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
     _add_service_options(p)
 
@@ -323,6 +326,14 @@ def _add_casefile(sub) -> None:
         from .casefile import build_casefile
         from .errors import ServiceError
         from .store import Store
+        if a.check is not None:
+            if a.facility_id is not None or a.out is not None:
+                parser.error("argument --check: give only the case file and --db")
+            from .commands.casefile_check import run as check
+            return check(Path(a.check), _existing_db(a, parser))
+        if a.facility_id is None or a.out is None:
+            parser.error("a facility id and --out FILE.pdf|FILE.json are needed to write a "
+                         "case file (or --check FILE.json to confirm one)")
         out = Path(a.out)
         if out.suffix.lower() not in (".pdf", ".json"):
             parser.error(f"argument --out: must end in .pdf or .json, got {a.out!r}")

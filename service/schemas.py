@@ -352,6 +352,37 @@ class CaseFacility(BaseModel):
     registered_at: str
 
 
+class TrailEntryRef(BaseModel):
+    n: int | None = Field(description="entry number in the database's trail")
+    entry_sha256: str | None
+
+
+class DecisionEntryRef(TrailEntryRef):
+    at: str
+    alert_id: int
+    alert_kind: str
+
+
+class RecordEntryRef(TrailEntryRef):
+    seq: int
+    record_id: str
+
+
+class VoidEntryRef(TrailEntryRef):
+    seq: int
+
+
+class CaseFileTrail(BaseModel):
+    """What a case file cites of the tamper-evident trail (README, 'Tamper-evident trail')."""
+
+    decision_entry: DecisionEntryRef | None = Field(
+        description="the entry of the decision: the chain head right after it was appended")
+    record_entries: list[RecordEntryRef]
+    void_entries: list[VoidEntryRef]
+    head_when_made: TrailEntryRef
+    how_to_check: str
+
+
 class CaseFilePublic(BaseModel):
     """The case file of a decided cycle (the PDF shows the same content)."""
 
@@ -380,6 +411,7 @@ class CaseFilePublic(BaseModel):
     draws: dict[str, Any] | None = Field(default=None, description="frames and RFC 3797 draws "
                                          "of the cycle; whether every evidence record was drawn")
     actions: list[ActionPublic]
+    trail: CaseFileTrail | None = None
     curve: list[dict[str, Any]]
     method: str
     caution: str

@@ -13,6 +13,7 @@ import sqlite3
 import subprocess
 from pathlib import Path
 
+import pypdf
 import pytest
 import sqlite_utils
 
@@ -278,3 +279,69 @@ def test_a_database_of_the_previous_version_is_backfilled_and_verifies(client, k
     # a hand edit in the migrated database is caught like any other
     shell(old_a, f"UPDATE records SET units = 2 WHERE record_id = '{calm}-0';")
     assert run("verify", "--db", str(old_a)).returncode == 1
+
+
+def test_the_case_file_cites_the_trail_and_checks_against_the_database(client, keys, app,
+                                                                       tmp_path):
+    flagged, calm = workload(client, keys, app.state.settings)
+    db = app.state.settings.db_path
+    # after the void the cycle is decided again: its case file cites the latest decision
+    r = client.get(f"/v1/facilities/{flagged}/cycles/1/casefile.json",
+                   headers=keys.header("analyst"))
+    assert r.status_code == 200, r.text
+    cf = r.json()
+    cited = cf["trail"]
+    store = Store(db)
+    decision = store.read("SELECT a.alert_id, a.kind, t.n, t.entry_sha256 FROM alerts a JOIN "
+                          "trail t ON t.kind = 'decision' AND t.ref = CAST(a.alert_id AS TEXT) "
+                          "WHERE a.facility_id = ? AND a.kind IN ('flagged', 'cleared', "
+                          "'decision_revised') ORDER BY a.alert_id DESC LIMIT 1", (flagged,))[0]
+    assert (cited["decision_entry"]["n"], cited["decision_entry"]["entry_sha256"]) == \
+        (decision["n"], decision["entry_sha256"])
+    by_seq = {r["seq"]: r for r in store.read("SELECT seq, trail_n FROM records")}
+    hashes = {r["n"]: r["entry_sha256"] for r in store.read("SELECT n, entry_sha256 FROM trail")}
+    assert [e["seq"] for e in cited["record_entries"]] == [x["seq"] for x in cf["records"]]
+    for e in cited["record_entries"]:
+        assert e["n"] == by_seq[e["seq"]]["trail_n"] and e["entry_sha256"] == hashes[e["n"]]
+    assert len(cited["void_entries"]) == 1
+    assert cited["head_when_made"]["entry_sha256"] == readme_recompute(db)[-1]
+    pdf = client.get(f"/v1/facilities/{flagged}/cycles/1/casefile.pdf",
+                     headers=keys.header("analyst"))
+    text = "".join("".join(page.extract_text().split())
+                   for page in pypdf.PdfReader(io.BytesIO(pdf.content)).pages)
+    assert f"Tamper-evidenttrail:decisionentry{decision['n']},SHA-256" \
+           f"{decision['entry_sha256']}" in text
+    path = tmp_path / "case.json"
+    path.write_text(json.dumps(cf), encoding="utf-8")
+    out = run("casefile", "--check", str(path), "--db", str(db))
+    assert out.returncode == 0, out.stdout + out.stderr
+    assert f"case file of {flagged} cycle 1 matches the database" in out.stdout
+    # the CLI writes the same citation
+    written = tmp_path / "cli.json"
+    assert run("casefile", flagged, "--cycle", "1", "--out", str(written), "--db",
+               str(db)).returncode == 0
+    assert run("casefile", "--check", str(written), "--db", str(db)).returncode == 0
+    # a case file edited after it was made fails, naming what differs
+    edited = json.loads(json.dumps(cf))
+    edited["records"][1]["nonconforming"] = 0
+    path.write_text(json.dumps(edited), encoding="utf-8")
+    out = run("casefile", "--check", str(path), "--db", str(db))
+    seq = edited["records"][1]["seq"]
+    assert out.returncode == 1
+    assert f"record seq {seq} ('{flagged}-1'): the case file says nonconforming = 0, the " \
+           "database 1" in out.stdout
+    # a database edited after the case file was made fails too
+    path.write_text(json.dumps(cf), encoding="utf-8")
+    shell(db, f"UPDATE records SET units = 3 WHERE seq = {seq};")
+    out = run("casefile", "--check", str(path), "--db", str(db))
+    assert out.returncode == 1 and "the database's trail does not verify" in out.stdout
+    assert "the case file says units = 1, the database 3" in out.stderr
+    # unreadable and trail-less files get clear answers
+    path.write_text("{not json", encoding="utf-8")
+    out = run("casefile", "--check", str(path), "--db", str(db))
+    assert out.returncode == 2 and "cannot read" in out.stderr
+    path.write_text(json.dumps({k: v for k, v in cf.items() if k != "trail"}), encoding="utf-8")
+    out = run("casefile", "--check", str(path), "--db", str(db))
+    assert out.returncode == 1 and "cites no trail" in out.stdout
+    out = run("casefile", flagged, "--check", str(path), "--db", str(db))
+    assert out.returncode == 2 and "give only the case file" in out.stderr

@@ -159,8 +159,9 @@ def cited_entries(conn, kind: str, refs: list[str]) -> dict[str, tuple]:
     for i in range(0, len(refs), _CHUNK):
         part = refs[i:i + _CHUNK]
         for ref, *rest in conn.execute(
-                "SELECT ref, n, at, prev_sha256, entry_sha256 FROM trail WHERE kind = ? AND "
-                f"ref IN ({','.join('?' * len(part))}) ORDER BY n", [kind, *part]):
+                "SELECT ref, n, at, prev_sha256, entry_sha256 FROM trail WHERE kind != 'records' "
+                f"AND kind = ? AND ref IN ({','.join('?' * len(part))}) ORDER BY n",
+                [kind, *part]):
             out[ref] = tuple(rest)
     return out
 
@@ -206,3 +207,44 @@ def _backfill_run(conn, n: int, prev: str, run: list[tuple]) -> str:
     conn.executemany("UPDATE records SET trail_n = ? WHERE seq = ?",
                      [(n + 1, row[SEQ]) for row in run])
     return append_records(conn, n, prev, run, run[0][RECEIVED])
+
+
+
+def entries_by_number(conn, numbers: list) -> dict[int, dict]:
+    """n -> {n, at, kind, ref, entry_sha256} for the given entry numbers (others ignored)."""
+    wanted = [n for n in numbers if isinstance(n, int)]
+    out = {}
+    for i in range(0, len(wanted), _CHUNK):
+        part = wanted[i:i + _CHUNK]
+        for n, at, kind, ref, digest in conn.execute(
+                "SELECT n, at, kind, ref, entry_sha256 FROM trail WHERE n IN "
+                f"({','.join('?' * len(part))})", part):
+            out[n] = {"n": n, "at": at, "kind": kind, "ref": ref, "entry_sha256": digest}
+    return out
+
+
+def decision_entry(conn, facility_id: str, cycle: int) -> dict | None:
+    """The entry of the cycle's latest decision (flagged, cleared or decision revised): the
+    head of the chain right after that decision was appended; None if there is none."""
+    row = conn.execute(
+        "SELECT t.n, t.at, t.entry_sha256, a.alert_id, a.kind FROM alerts a JOIN trail t ON "
+        "t.kind = 'decision' AND t.ref = CAST(a.alert_id AS TEXT) WHERE a.facility_id = ? "
+        "AND a.cycle = ? AND a.kind IN ('flagged', 'cleared', 'decision_revised') "
+        "ORDER BY a.alert_id DESC LIMIT 1", (facility_id, cycle)).fetchone()
+    if row is None:
+        return None
+    return {"n": row[0], "at": row[1], "entry_sha256": row[2], "alert_id": row[3],
+            "alert_kind": row[4]}
+
+
+def records_by_seq(conn, seqs: list) -> list[dict]:
+    """The stored records with the given seq numbers, with their trail_n."""
+    wanted = [s for s in seqs if isinstance(s, int)]
+    out = []
+    for i in range(0, len(wanted), _CHUNK):
+        part = wanted[i:i + _CHUNK]
+        cur = conn.execute(f"SELECT * FROM records WHERE seq IN ({','.join('?' * len(part))})",
+                           part)
+        names = [c[0] for c in cur.description]
+        out += [dict(zip(names, r)) for r in cur.fetchall()]
+    return out
