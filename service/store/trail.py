@@ -209,7 +209,6 @@ def _backfill_run(conn, n: int, prev: str, run: list[tuple]) -> str:
     return append_records(conn, n, prev, run, run[0][RECEIVED])
 
 
-
 def entries_by_number(conn, numbers: list) -> dict[int, dict]:
     """n -> {n, at, kind, ref, entry_sha256} for the given entry numbers (others ignored)."""
     wanted = [n for n in numbers if isinstance(n, int)]
