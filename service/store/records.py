@@ -217,6 +217,10 @@ class RecordsMixin:
                     inserts[p] = row[:3] + (cyc["cycle"],) + row[4:12] + (1,) + row[13:]
                 if not positions:
                     break
+        now_head = head(conn) if inserts else (trail_n, trail_prev)
+        if now_head[0] != trail_n:      # entries appended meanwhile (a cycle opened by a signal)
+            trail_n, trail_prev = now_head
+            inserts = [row[:-1] + (trail_n + 1,) for row in inserts]
         conn.executemany(_INSERT_RECORDS, inserts)
         marks.save(conn)
         if inserts:
