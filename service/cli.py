@@ -194,6 +194,9 @@ def _add_keys(sub) -> None:
     _add_service_options(add)
     add.add_argument("--role", required=True, choices=("field", "analyst", "admin"))
     add.add_argument("--label", required=True)
+    add.add_argument("--expires", default=None, metavar="WHEN",
+                     help="the key stops working after this long (e.g. 90d, 12h, 2w) or at "
+                          "this RFC 3339 time")
     lst = ks.add_parser("list", help="list keys (never the keys themselves)")
     _add_service_options(lst)
     rev = ks.add_parser("revoke", help="revoke a key by id")
@@ -205,7 +208,7 @@ def _add_keys(sub) -> None:
             from .commands import keys as k
             db = _existing_db(a, parser, create=name == "add")
             if name == "add":
-                return k.add(db, a.role, a.label)
+                return k.add(db, a.role, a.label, a.expires)
             return k.list_keys(db) if name == "list" else k.revoke(db, a.key_id)
         return run
 
@@ -292,11 +295,14 @@ def _add_backup(sub) -> None:
 
 
 def _add_casefile(sub) -> None:
-    p = sub.add_parser("casefile", help="write the case file of a decided cycle (.pdf or .json)")
-    p.add_argument("facility_id")
+    p = sub.add_parser("casefile", help="write the case file of a decided cycle (.pdf or .json), "
+                                        "or --check one against the database")
+    p.add_argument("facility_id", nargs="?")
     p.add_argument("--cycle", type=_unit_count, default=None,
                    help="cycle number (default: the current cycle)")
-    p.add_argument("--out", required=True, help="FILE.pdf or FILE.json")
+    p.add_argument("--out", default=None, help="FILE.pdf or FILE.json (needed to write one)")
+    p.add_argument("--check", default=None, metavar="FILE.json",
+                   help="confirm this JSON case file against the database (exit 0 or 1)")
     p.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
     _add_service_options(p)
 
@@ -305,6 +311,14 @@ def _add_casefile(sub) -> None:
         from .casefile import build_casefile
         from .errors import ServiceError
         from .store import Store
+        if a.check is not None:
+            if a.facility_id is not None or a.out is not None:
+                parser.error("argument --check: give only the case file and --db")
+            from .commands.casefile_check import run as check
+            return check(Path(a.check), _existing_db(a, parser))
+        if a.facility_id is None or a.out is None:
+            parser.error("a facility id and --out FILE.pdf|FILE.json are needed to write a "
+                         "case file (or --check FILE.json to confirm one)")
         out = Path(a.out)
         if out.suffix.lower() not in (".pdf", ".json"):
             parser.error(f"argument --out: must end in .pdf or .json, got {a.out!r}")
@@ -328,23 +342,13 @@ def _add_casefile(sub) -> None:
 
 
 def _add_verify(sub) -> None:
-    p = sub.add_parser("verify", help="replay every cycle and compare with the stored states")
+    p = sub.add_parser("verify", help="replay every cycle and compare with the stored states; "
+                                      "check the tamper-evident trail")
     _add_service_options(p)
 
     def run(a, parser):
-        import time as _time
-        from .store import Store
-        from .verify import verify_database
-        db = _existing_db(a, parser)
-        start = _time.perf_counter()
-        report = verify_database(Store(db))
-        took = _time.perf_counter() - start
-        for m in report.mismatches[:20]:
-            print(f"MISMATCH {m}", file=sys.stderr)
-        print(f"replayed {report.records} records in {report.cycles} cycles in {took:.2f} s: "
-              + ("every stored state equals its replay" if report.ok
-                 else f"{len(report.mismatches)} cycle(s) differ"))
-        return 0 if report.ok else 1
+        from .commands.verify import run as verify
+        return verify(_existing_db(a, parser))
 
     p.set_defaults(func=run)
 

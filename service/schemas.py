@@ -128,6 +128,9 @@ class FindingPublic(BaseModel):
 class KeyCreate(_Strict):
     role: Role
     label: StrictStr = Field(min_length=1, max_length=200, pattern=PRINTABLE)
+    expires_at: StrictStr | None = Field(
+        None, max_length=64, description="RFC 3339 date-time at which the key stops working "
+        "(optional; in the future)")
 
 
 class CyclePublic(BaseModel):
@@ -282,6 +285,7 @@ class KeyPublic(BaseModel):
     prefix: str | None
     created_at: str
     revoked_at: str | None
+    expires_at: str | None = None
 
 
 class KeyCreated(KeyPublic):
@@ -384,6 +388,37 @@ class CaseFacility(BaseModel):
     registered_at: str
 
 
+class TrailEntryRef(BaseModel):
+    n: int | None = Field(description="entry number in the database's trail")
+    entry_sha256: str | None
+
+
+class DecisionEntryRef(TrailEntryRef):
+    at: str
+    alert_id: int
+    alert_kind: str
+
+
+class RecordEntryRef(TrailEntryRef):
+    seq: int
+    record_id: str
+
+
+class VoidEntryRef(TrailEntryRef):
+    seq: int
+
+
+class CaseFileTrail(BaseModel):
+    """What a case file cites of the tamper-evident trail (README, 'Tamper-evident trail')."""
+
+    decision_entry: DecisionEntryRef | None = Field(
+        description="the entry of the decision: the chain head right after it was appended")
+    record_entries: list[RecordEntryRef]
+    void_entries: list[VoidEntryRef]
+    head_when_made: TrailEntryRef
+    how_to_check: str
+
+
 class CaseFilePublic(BaseModel):
     """The case file of a decided cycle (the PDF shows the same content)."""
 
@@ -417,6 +452,7 @@ class CaseFilePublic(BaseModel):
     draws: dict[str, Any] | None = Field(default=None, description="frames and RFC 3797 draws "
                                          "of the cycle; whether every evidence record was drawn")
     actions: list[ActionPublic]
+    trail: CaseFileTrail | None = None
     curve: list[dict[str, Any]]
     method: str
     caution: str

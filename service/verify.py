@@ -62,34 +62,41 @@ class VerifyReport:
 
 
 _FAC_BITS, _CYC_BITS, _N_BITS = 20, 8, 17
+# The group key verify_database sorts on: (facility rowid << _GROUP_BITS) | cycle.
+_GROUP_BITS = 32
 
 
 def _load(conn) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """(group key, units, nonconforming, counted) of every live record, in receipt order.
 
-    The group key is (facility rowid << 8 | cycle). Python's sqlite3 spends most of a scan
-    building row tuples, so when the numbers fit, each row comes back as one packed 63-bit
-    integer; otherwise as two.
+    The group key is (facility rowid << 32 | cycle). Python's sqlite3 spends most of a scan
+    building row tuples, so when the numbers fit (cycle below 256, units below 2**17,
+    facility rowid below 2**20) each row comes back as one packed 63-bit integer;
+    otherwise as five plain columns.
     """
-    top = conn.execute("SELECT COALESCE(MAX(units), 0), COALESCE(MAX(cycle), 0) FROM records"
-                       ).fetchone()
+    top = conn.execute("SELECT COALESCE(MAX(units), 0), COALESCE(MAX(cycle), 0), "
+                       "COALESCE(MAX(nonconforming), 0) FROM records").fetchone()
     top_fac = conn.execute("SELECT COALESCE(MAX(rowid), 0) FROM facilities").fetchone()[0]
+    if top[1] >= 2 ** _GROUP_BITS or top_fac >= 2 ** (63 - _GROUP_BITS):
+        raise ValueError(f"cycle numbers up to {top[1]} and {top_fac} facility rows do not "
+                         "fit the replay's 63-bit group key")
     join = ("FROM records r JOIN facilities f ON f.facility_id = r.facility_id "
             "WHERE r.void = 0 AND r.excluded IS NULL ORDER BY r.seq")
-    if top[0] < 2 ** _N_BITS and top[1] < 2 ** _CYC_BITS and top_fac < 2 ** _FAC_BITS:
+    if max(top[0], top[2]) < 2 ** _N_BITS and top[1] < 2 ** _CYC_BITS \
+            and top_fac < 2 ** _FAC_BITS:
         shift_g = 2 * _N_BITS + 1
         packed = np.array(conn.execute(
             f"SELECT (((f.rowid << {_CYC_BITS}) | r.cycle) << {shift_g}) | (r.units << "
             f"{_N_BITS + 1}) | (r.nonconforming << 1) | r.counted {join}").fetchall(),
             dtype=np.int64).reshape(-1)
         mask = (1 << _N_BITS) - 1
-        return (packed >> shift_g, (packed >> (_N_BITS + 1)) & mask, (packed >> 1) & mask,
-                packed & 1)
+        small = packed >> shift_g
+        group = ((small >> _CYC_BITS) << _GROUP_BITS) | (small & ((1 << _CYC_BITS) - 1))
+        return (group, (packed >> (_N_BITS + 1)) & mask, (packed >> 1) & mask, packed & 1)
     rows = np.array(conn.execute(
-        f"SELECT (f.rowid << {_CYC_BITS + 24}) | r.cycle, (r.units << 24) | "
-        f"(r.nonconforming << 1) | r.counted {join}").fetchall(), dtype=np.int64).reshape(-1, 2)
-    group = ((rows[:, 0] >> (_CYC_BITS + 24)) << _CYC_BITS) | (rows[:, 0] & ((1 << 24) - 1))
-    return group, rows[:, 1] >> 24, (rows[:, 1] >> 1) & ((1 << 23) - 1), rows[:, 1] & 1
+        f"SELECT (f.rowid << {_GROUP_BITS}) | r.cycle, r.units, r.nonconforming, r.counted "
+        f"{join}").fetchall(), dtype=np.int64).reshape(-1, 4)
+    return rows[:, 0], rows[:, 1], rows[:, 2], rows[:, 3]
 
 
 def verify_database(store: Store) -> VerifyReport:
@@ -105,10 +112,10 @@ def verify_database(store: Store) -> VerifyReport:
     mismatches: list[dict] = []
     seen = set()
     plans: dict[str, SprtPlan] = {}
-    cyc_mask = (1 << _CYC_BITS) - 1
+    cyc_mask = (1 << _GROUP_BITS) - 1
     for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
         g = int(group[a])
-        key = (names.get(g >> _CYC_BITS), g & cyc_mask)
+        key = (names.get(g >> _GROUP_BITS), g & cyc_mask)
         seen.add(key)
         cyc = cycles.get(key)
         if cyc is None:

@@ -65,3 +65,31 @@ def test_wide_numbers_take_the_two_column_path(client, keys, app, monkeypatch):
     monkeypatch.setattr(v, "_N_BITS", 1)       # units of 3 no longer fit: fall back
     slow = verify_database(Store(db))
     assert fast.ok and slow.ok and fast.records == slow.records == 6
+
+
+def test_cycles_past_255_are_replayed_as_themselves(client, keys, app):
+    # A facility closed and reopened until its cycle number needs more than 8 bits, beside
+    # another facility registered after it; both replay clean, and a tampered state of a
+    # high cycle is named with its own number.
+    fid, other = new_facility(client, keys), new_facility(client, keys)
+    store = app.state.monitor.store
+    store._conn().execute("PRAGMA synchronous = OFF")      # 600 small commits, test speed only
+    actor, now = ("test", "admin"), "2026-12-01T08:00:00.000000Z"
+    snapshot = app.state.monitor.plans.snapshot("dispensers")
+    for _ in range(299):
+        store.close_cycle(fid, "rotation", now, actor)
+        store.open_cycle(fid, snapshot, now, actor)
+    assert store.facility(fid)["current_cycle"] == 300
+    for i in range(4):
+        for f in (fid, other):
+            r = client.post("/v1/records", json=record(f, f"{f}-{i}", int(i == 1)),
+                            headers=keys.header("field"))
+            assert r.status_code in (200, 201), r.text
+    report = verify_database(Store(app.state.settings.db_path))
+    assert report.ok, report.mismatches[:3]
+    assert (report.records, report.cycles) == (8, 301)
+    with store.write() as conn:
+        conn.execute("UPDATE cycles SET nonconforming = 0 WHERE facility_id = ? AND cycle = 300",
+                     (fid,))
+    report = verify_database(Store(app.state.settings.db_path))
+    assert [(m["facility_id"], m["cycle"]) for m in report.mismatches] == [(fid, 300)]

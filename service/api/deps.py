@@ -49,6 +49,9 @@ async def caller(request: Request) -> tuple[str, str]:
         raise _refused(request, "this API key is not known")
     if row["revoked_at"] is not None:
         raise _refused(request, f"this API key was revoked at {row['revoked_at']}")
+    if row["expires_at"] is not None and row["expires_at"] <= request.app.state.monitor.clock():
+        raise _refused(request, f"this API key expired at {row['expires_at']}; ask an admin "
+                                "for a new one")
     wait = request.app.state.buckets.take(str(row["id"]))
     if wait > 0:
         raise RateLimited(wait)

@@ -14,6 +14,7 @@ from ..stats.looks import looks_figures, sizes_differ
 from ..store import Store, plan_from_snapshot
 from .docid import with_document_id
 from .draws import draws_section
+from .trail_refs import trail_citation
 
 NOT_CHECKED = [
     "whether the audited units were in fact selected at random (the service records what "
@@ -194,6 +195,7 @@ def build_casefile(store: Store, facility_id: str, cycle: int | None = None,
         "records": [record_public(r) for r in rows],
         "draws": draws_section(store, facility_id, number, rows, snap),
         "actions": actions,
+        "trail": trail_citation(store, facility_id, number, rows),
         "curve": figures["curve"],
         "method": METHOD,
         "caution": SIGNAL_NOT_VERDICT,

@@ -123,6 +123,19 @@ def _signoff(cf: dict) -> list:
                "signal above is not a verdict.", SMALL), table]
 
 
+def _trail_lines(trail: dict | None) -> list:
+    """The chain head at the decision and when the file was made (the JSON case file lists
+    every record's entry)."""
+    if not trail:
+        return []
+    d, head = trail.get("decision_entry") or {}, trail["head_when_made"]
+    text = (f"Tamper-evident trail: decision entry {_t(d.get('n'))}, SHA-256 "
+            f"{_t(d.get('entry_sha256'))}; head when made: entry {_t(head['n'])}, SHA-256 "
+            f"{_t(head['entry_sha256'])}. The JSON case file cites each record's entry; "
+            f"{_t(trail['how_to_check'])}.")
+    return [_p("Trail", H2), _p(text, SMALL)]
+
+
 def render_pdf(cf: dict) -> bytes:
     buf = io.BytesIO()
     fac = cf["facility"]
@@ -256,6 +269,7 @@ def render_pdf(cf: dict) -> bytes:
         *[_p("&bull; " + _t(a)) for a in cf["not_checked"]],
         Spacer(1, 4 * mm),
         _p("Method", H2), _p(_t(cf["method"]), SMALL),
+        *_trail_lines(cf.get("trail")),
         _p(f"Generated {_ts(cf['generated_at'])} by seqaudit {_t(cf['software_version'])}.",
            SMALL)]), KeepTogether(_signoff(cf))]
     marks = [f"Case file {fac['facility_id']}, cycle {cf['cycle']} - {fac['name']}"[:110],

@@ -19,6 +19,7 @@ import sqlite_utils
 from .common import rows_of
 from .group_commit import GroupCommitter
 from .migrations import migrate
+from .trail import action_content, append_entry
 
 
 class StoreBase:
@@ -104,10 +105,13 @@ class StoreBase:
     @staticmethod
     def _log(conn, now, actor, action, detail, facility_id=None, cycle=None, target=None):
         label, role = actor
-        conn.execute("INSERT INTO actions (at, key_label, role, action, facility_id, cycle, "
-                     "target, detail) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-                     (now, label, role, action, facility_id, cycle, target,
-                      json.dumps(detail, sort_keys=True)))
+        text = json.dumps(detail, sort_keys=True)
+        cur = conn.execute("INSERT INTO actions (at, key_label, role, action, facility_id, "
+                           "cycle, target, detail) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                           (now, label, role, action, facility_id, cycle, target, text))
+        append_entry(conn, "action", action_content(cur.lastrowid, now, label, role, action,
+                                                    facility_id, cycle, target, text),
+                     now, ref=cur.lastrowid)
 
     def actions(self, limit=100, offset=0, facility_id=None, cycle=None) -> tuple[list[dict], int]:
         return self._page("actions", "id", {"facility_id": facility_id, "cycle": cycle},

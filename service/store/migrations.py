@@ -151,7 +151,21 @@ def _v9(db: sqlite_utils.Database) -> None:
     db["findings"].create_index(["facility_id", "cycle", "id"])
 
 
-MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8, _v9]
+def _v10(db: sqlite_utils.Database) -> None:
+    """The tamper-evident trail (service/store/trail.py), with entries for the rows already
+    there (records, voids, alerts, actions, in that order); keys get an optional expiry."""
+    from .trail import backfill
+
+    db.execute("CREATE TABLE trail (n INTEGER PRIMARY KEY, at TEXT NOT NULL, kind TEXT NOT NULL, "
+               "ref TEXT, content TEXT, prev_sha256 TEXT NOT NULL, entry_sha256 TEXT NOT NULL)")
+    # records are found through records.trail_n (the number of their job's entry)
+    db.execute("CREATE INDEX trail_kind_ref ON trail (kind, ref) WHERE kind != 'records'")
+    db.execute("ALTER TABLE records ADD COLUMN trail_n INTEGER")
+    db.execute("ALTER TABLE keys ADD COLUMN expires_at TEXT")
+    backfill(db.conn)
+
+
+MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8, _v9, _v10]
 
 
 def migrate(db: sqlite_utils.Database) -> int:

@@ -1,6 +1,7 @@
 """Inspection records: ingest (group commit), a cycle's records, voids."""
 from __future__ import annotations
 
+import operator
 import sqlite3
 from typing import NamedTuple
 
@@ -11,6 +12,7 @@ from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
 from .common import plan_of, rows_of, state_of, where_in
 from .frames import DrawMarks
 from .group_commit import Job
+from .trail import append_entry, append_records, head, void_content
 
 
 class RecordIn(NamedTuple):
@@ -55,7 +57,10 @@ class IngestOutcome(NamedTuple):
 _INSERT_RECORDS = (
     "INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, observed_utc, "
     "received_at, units, nonconforming, unit_ref, inspector, note, counted, key_label, void, "
-    "draw_id, draw_order, excluded) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, ?, ?, ?)")
+    "draw_id, draw_order, excluded, trail_n) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, "
+    "?, ?, ?, ?)")
+# An insert row (above) -> the record's trail content, in trail_hash.RECORD_FIELDS order.
+_TRAIL_ROW = operator.itemgetter(3, 14, 15, 16, 2, 10, 13, 8, 11, 4, 5, 6, 1, 0, 9, 7)
 
 # The sqlite3 module binds a None parameter only after a failed adapter lookup that raises
 # and formats two AttributeErrors (about 0.4 us each; records carry several None fields).
@@ -116,6 +121,7 @@ class RecordsMixin:
         seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
         marks = DrawMarks(conn, items, cycles)              # drawn units of open cycles
         oldest = old_limit(now)
+        trail_n, trail_prev = head(conn)      # this job's records become the next entry
         batch: dict[str, tuple[RecordIn, int]] = {}     # ids first seen in this job
         runs: dict[str, tuple[list, list, list, list]] = {}   # facility -> its new records
         inserts, alerts, outcomes = [], [], []
@@ -173,7 +179,7 @@ class RecordsMixin:
             inserts.append((seq, rid, it.facility_id, cyc["cycle"], it.observed_at,
                             it.observed_utc, now, it.units, it.nonconforming, it.unit_ref,
                             it.inspector, it.note, int(unit.excluded is None), key_label,
-                            unit.draw_id, unit.order, unit.excluded))
+                            unit.draw_id, unit.order, unit.excluded, trail_n + 1))
             batch[rid] = (it, seq)
             outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id, None, None,
                                           observation_note(it.observed_utc, cyc["opened_at"],
@@ -216,8 +222,14 @@ class RecordsMixin:
                     inserts[p] = row[:3] + (cyc["cycle"],) + row[4:12] + (1,) + row[13:]
                 if not positions:
                     break
+        now_head = head(conn) if inserts else (trail_n, trail_prev)
+        if now_head[0] != trail_n:      # entries appended meanwhile (a cycle opened by a signal)
+            trail_n, trail_prev = now_head
+            inserts = [row[:-1] + (trail_n + 1,) for row in inserts]
         conn.executemany(_INSERT_RECORDS, inserts)
         marks.save(conn)
+        if inserts:
+            append_records(conn, trail_n, trail_prev, list(map(_TRAIL_ROW, inserts)), now)
         for cyc in touched:
             self._write_state(conn, cyc, cyc["_state"])
             self._write_watch(conn, cyc)
@@ -339,6 +351,8 @@ class RecordsMixin:
             # a drawn unit whose re-check is voided is again to be re-checked
             conn.execute("UPDATE draw_units SET record_seq = NULL WHERE record_seq = ?",
                          (rec["seq"],))
+            append_entry(conn, "void", void_content(rec["seq"], record_id, now, actor[0],
+                                                    reason), now, ref=rec["seq"])
             fid, number = rec["facility_id"], rec["cycle"]
             cyc = rows_of(conn.execute("SELECT * FROM cycles WHERE facility_id = ? AND cycle = ?",
                                      (fid, number)))[0]
