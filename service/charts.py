@@ -21,8 +21,13 @@ def plan_figure(result: DesignResult, mark_p: float | None = None):
 
 
 def curves_figure(pts: list[dict], p0: float, p1: float, mark_p: float | None = None,
-                  mark_label: str = "estimate"):
-    """OC and ASN curves from ``design(...).to_dict()["curve"]`` points."""
+                  mark_label: str = "estimate",
+                  interval: tuple[float, float, float] | None = None):
+    """OC and ASN curves from ``design(...).to_dict()["curve"]`` points.
+
+    ``interval``: (low, high, level) of a confidence interval, shaded; the rate axis is
+    widened so that p0, p1, the mark and the whole interval are on it.
+    """
     p = [c["p"] for c in pts]
     fig, (oc, asn) = plt.subplots(1, 2, figsize=(10, 4), constrained_layout=True)
     oc.plot(p, [c["p_flag"] for c in pts], color=PALETTE["exact"], label="exact")
@@ -44,6 +49,13 @@ def curves_figure(pts: list[dict], p0: float, p1: float, mark_p: float | None = 
                         xytext=(3, -12), textcoords="offset points", color=PALETTE["grey"])
         if mark_p is not None:
             ax.axvline(mark_p, color=PALETTE["marker"], linewidth=1.5, label=mark_label)
+        if interval is not None:
+            low, high, level = interval
+            ax.axvspan(low, high, color=PALETTE["marker"], alpha=0.15,
+                       label=f"{100 * level:g} % interval")
+        right = max([p[-1], p1, *(v for v in (mark_p,) if v is not None),
+                     *((interval[1],) if interval is not None else ())])
+        ax.set_xlim(0.0, min(1.0, right * 1.05))
         ax.grid(alpha=0.3)
         ax.legend(loc="best", fontsize=8)
     return fig

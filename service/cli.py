@@ -3,15 +3,26 @@ from __future__ import annotations
 
 import argparse
 import json
+import re
 import sys
 from pathlib import Path
 
-CHART_FORMATS = (".png", ".svg", ".pdf")
+from .commands.plan import CHART_FORMATS  # plain Python: no numpy at parse time
+
 DEFAULT_CONFIG = Path(__file__).resolve().parent.parent / "config" / "seqaudit.toml"
 
 
 class _Parser(argparse.ArgumentParser):
-    """argparse that reports a bad command line in one line and exits 2."""
+    """argparse that reports a bad command line in one line and exits 2.
+
+    A value such as ``-3``, ``-1e20`` or ``-inf`` after an option is that option's value
+    (argparse's own pattern only knows plain negative decimals).
+    """
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self._negative_number_matcher = re.compile(
+            r"^-(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$|^-(inf|infinity|nan)$", re.IGNORECASE)
 
     def error(self, message):  # noqa: D401 - argparse hook
         self.exit(2, f"{self.prog}: error: {message}\n")
@@ -46,6 +57,15 @@ def _add_plan(sub) -> None:
                    help="at the cap, flag iff LLR >= this (default 0)")
     p.add_argument("--calibrate", action="store_true",
                    help="tune the boundaries so the exact risks meet alpha and beta")
+    p.add_argument("--visit-units", type=_unit_count, default=1, metavar="K",
+                   help="units per record: the boundaries are looked at every K units "
+                        "(default 1)")
+    p.add_argument("--sensitivity", type=_rate, default=1.0,
+                   help="chance a re-check finds a truly nonconforming unit (default 1)")
+    p.add_argument("--specificity", type=_rate, default=1.0,
+                   help="chance a re-check passes a truly conforming unit (default 1)")
+    p.add_argument("--rate", type=_rate, action="append", default=[], metavar="P",
+                   help="also report the figures at this true rate (repeatable)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--plot", metavar="FILE", help="write OC and ASN curves (.png, .svg, .pdf)")
     p.add_argument("--register-size", type=_unit_count, default=None, metavar="K",
@@ -65,58 +85,8 @@ def _add_plans(sub) -> None:
 
 
 def _cmd_plan(args, parser) -> int:
-    from .plan_report import render
-    from .stats import PlanInputError, design
-
-    if args.plot and Path(args.plot).suffix.lower() not in CHART_FORMATS:
-        parser.error(f"argument --plot: file must end in {', '.join(CHART_FORMATS)}, "
-                     f"got {args.plot!r}")
-    if args.plot and not Path(args.plot).resolve().parent.is_dir():
-        parser.error(f"argument --plot: folder {str(Path(args.plot).resolve().parent)!r} does "
-                     "not exist; create it first or write the chart elsewhere")
-    register = None
-    if (args.register_size is None) != (args.register_false_flags is None):
-        parser.error("arguments --register-size and --register-false-flags go together")
-    try:
-        if args.register_size is not None:
-            from .stats.register import register_design
-            result, register = register_design(
-                args.p0, args.p1, args.alpha, args.beta, args.register_size,
-                args.register_false_flags, max_units=args.max_units, cut_llr=args.cut_llr,
-                calibrate=args.calibrate)
-        else:
-            result = design(args.p0, args.p1, args.alpha, args.beta, max_units=args.max_units,
-                            cut_llr=args.cut_llr, calibrate=args.calibrate)
-    except PlanInputError as exc:
-        parser.error(f"argument --{exc.argument.replace('_', '-')}: {exc}")
-    except ValueError as exc:  # e.g. a cap too small for calibration to meet the risks
-        parser.error(str(exc))
-    from .commands.watch import watch_of_args
-    watch = watch_of_args(args, parser)
-    if args.plot:
-        from .charts import save_plan_chart  # matplotlib only when a chart is asked for
-        try:
-            save_plan_chart(result, args.plot)
-        except OSError as exc:   # e.g. a folder without write permission
-            parser.error(f"argument --plot: cannot write {args.plot!r}: {exc.strerror or exc}")
-    if args.json:
-        out = result.to_dict()
-        if register is not None:
-            out["register"] = register
-        out["watch"] = None if watch is None else watch.to_dict()
-        json.dump(out, sys.stdout, indent=2)
-        sys.stdout.write("\n")
-    else:
-        if register is not None:
-            from .program import register_lines
-            sys.stdout.write("\n".join(register_lines(register)) + "\n\n")
-        sys.stdout.write(render(result))
-        if watch is not None:
-            from .watching import report_lines
-            sys.stdout.write("\n".join(report_lines(watch)) + "\n")
-        if args.plot:
-            sys.stdout.write(f"\nChart written to {args.plot}\n")
-    return 0
+    from .commands.plan import run_plan
+    return run_plan(args, parser)
 
 
 def _cmd_plans(args, parser) -> int:
@@ -224,6 +194,9 @@ def _add_keys(sub) -> None:
     _add_service_options(add)
     add.add_argument("--role", required=True, choices=("field", "analyst", "admin"))
     add.add_argument("--label", required=True)
+    add.add_argument("--expires", default=None, metavar="WHEN",
+                     help="the key stops working after this long (e.g. 90d, 12h, 2w) or at "
+                          "this RFC 3339 time")
     lst = ks.add_parser("list", help="list keys (never the keys themselves)")
     _add_service_options(lst)
     rev = ks.add_parser("revoke", help="revoke a key by id")
@@ -235,7 +208,7 @@ def _add_keys(sub) -> None:
             from .commands import keys as k
             db = _existing_db(a, parser, create=name == "add")
             if name == "add":
-                return k.add(db, a.role, a.label)
+                return k.add(db, a.role, a.label, a.expires)
             return k.list_keys(db) if name == "list" else k.revoke(db, a.key_id)
         return run
 
@@ -248,24 +221,39 @@ def _add_import(sub, noun: str) -> None:
     p = sub.add_parser(noun, help=f"{noun} register tools")
     acts = p.add_subparsers(dest=f"{noun}_command", parser_class=_Parser, metavar="ACTION")
     acts.required = True
-    imp = acts.add_parser("import", help=f"load {noun} from a CSV file")
-    imp.add_argument("file")
+    imp = acts.add_parser("import", help=f"load {noun} from a CSV file or an .xlsx workbook")
+    imp.add_argument("file", help="FILE.csv or FILE.xlsx")
     _add_service_options(imp)
     imp.add_argument("--errors", default=None, help="write rejected rows to this CSV file")
+    imp.add_argument("--sheet", default=None, help=".xlsx: worksheet name (default: the first)")
+    if noun == "records":
+        imp.add_argument("--time-zone", default=None, metavar="ZONE",
+                         help=".xlsx: the zone spreadsheet date-times were written in (IANA "
+                              "name such as Europe/London, UTC, or +01:00); without it such "
+                              "cells are refused, never guessed")
 
     def run(a, parser):
         from .commands import imports
         from .operations import Monitor, PlanBook
         from .store import Store
 
+        if getattr(a, "time_zone", None):
+            from .commands.spreadsheets import parse_zone
+            try:
+                parse_zone(a.time_zone)
+            except ValueError as exc:
+                parser.error(f"argument --time-zone: {exc}")
         settings = _settings(a)
         store = Store(settings.db_path)
         store.migrate()
         monitor = Monitor(store=store, plans=PlanBook(settings.plans),
-                          max_batch=max(settings.max_batch, imports.BATCH))
-        fn = imports.import_facilities if noun == "facilities" else imports.import_records
+                          max_batch=max(settings.max_batch, imports.BATCH),
+                          max_record_units=settings.max_record_units)
         try:
-            return fn(monitor, a.file, a.errors)
+            if noun == "facilities":
+                return imports.import_facilities(monitor, a.file, a.errors, sheet=a.sheet)
+            return imports.import_records(monitor, a.file, a.errors, time_zone=a.time_zone,
+                                          sheet=a.sheet)
         except (OSError, ValueError) as exc:
             parser.error(str(exc))
 
@@ -307,11 +295,14 @@ def _add_backup(sub) -> None:
 
 
 def _add_casefile(sub) -> None:
-    p = sub.add_parser("casefile", help="write the case file of a decided cycle (.pdf or .json)")
-    p.add_argument("facility_id")
+    p = sub.add_parser("casefile", help="write the case file of a decided cycle (.pdf or .json), "
+                                        "or --check one against the database")
+    p.add_argument("facility_id", nargs="?")
     p.add_argument("--cycle", type=_unit_count, default=None,
                    help="cycle number (default: the current cycle)")
-    p.add_argument("--out", required=True, help="FILE.pdf or FILE.json")
+    p.add_argument("--out", default=None, help="FILE.pdf or FILE.json (needed to write one)")
+    p.add_argument("--check", default=None, metavar="FILE.json",
+                   help="confirm this JSON case file against the database (exit 0 or 1)")
     p.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
     _add_service_options(p)
 
@@ -320,6 +311,14 @@ def _add_casefile(sub) -> None:
         from .casefile import build_casefile
         from .errors import ServiceError
         from .store import Store
+        if a.check is not None:
+            if a.facility_id is not None or a.out is not None:
+                parser.error("argument --check: give only the case file and --db")
+            from .commands.casefile_check import run as check
+            return check(Path(a.check), _existing_db(a, parser))
+        if a.facility_id is None or a.out is None:
+            parser.error("a facility id and --out FILE.pdf|FILE.json are needed to write a "
+                         "case file (or --check FILE.json to confirm one)")
         out = Path(a.out)
         if out.suffix.lower() not in (".pdf", ".json"):
             parser.error(f"argument --out: must end in .pdf or .json, got {a.out!r}")
@@ -343,23 +342,13 @@ def _add_casefile(sub) -> None:
 
 
 def _add_verify(sub) -> None:
-    p = sub.add_parser("verify", help="replay every cycle and compare with the stored states")
+    p = sub.add_parser("verify", help="replay every cycle and compare with the stored states; "
+                                      "check the tamper-evident trail")
     _add_service_options(p)
 
     def run(a, parser):
-        import time as _time
-        from .store import Store
-        from .verify import verify_database
-        db = _existing_db(a, parser)
-        start = _time.perf_counter()
-        report = verify_database(Store(db))
-        took = _time.perf_counter() - start
-        for m in report.mismatches[:20]:
-            print(f"MISMATCH {m}", file=sys.stderr)
-        print(f"replayed {report.records} records in {report.cycles} cycles in {took:.2f} s: "
-              + ("every stored state equals its replay" if report.ok
-                 else f"{len(report.mismatches)} cycle(s) differ"))
-        return 0 if report.ok else 1
+        from .commands.verify import run as verify
+        return verify(_existing_db(a, parser))
 
     p.set_defaults(func=run)
 

@@ -51,3 +51,15 @@ class TimedOut(Busy):
     """A heavy job ran past its time limit and was stopped: 503 with Retry-After."""
 
     slug, title = "timed-out", "Took too long"
+
+
+class Unavailable(ServiceError):
+    """The service cannot do this now for a reason outside the request (storage trouble)."""
+
+    status, slug, title = 503, "unavailable", "Service unavailable"
+
+    def __init__(self, detail: str, slug: str = "unavailable", retry_after_s: int | None = None,
+                 **extra):
+        super().__init__(detail, **extra)
+        self.slug = slug
+        self.retry_after_s = retry_after_s

@@ -8,7 +8,6 @@ from pathlib import Path
 
 from .casefile import build_casefile
 from .casefile.pdf import render_pdf
-from .stats import design
 from .store import Store
 
 _STORES: dict[str, Store] = {}
@@ -31,20 +30,11 @@ def casefile_pdf_job(db_path: str, facility_id: str, cycle: int, level: float) -
     return render_pdf(build_casefile(_store(db_path), facility_id, cycle, level))
 
 
-def design_job(p0: float, p1: float, alpha: float, beta: float, max_units: int | None,
-               calibrate: bool) -> dict:
-    """A plan's design (boundaries, exact OC and ASN; calibration if asked) as its dict."""
-    return design(p0=p0, p1=p1, alpha=alpha, beta=beta, max_units=max_units,
-                  calibrate=calibrate).to_dict()
-
-
-def register_design_job(values: dict, size_text: str, false_flags_text: str,
-                        cap: int | None, calibrate: bool) -> tuple[dict, dict]:
-    """The workbench's register fields: the design at the per-facility alpha as its dict,
-    and the register block (see :func:`service.program.register_from_form`)."""
-    from .program import register_from_form
-    res, register = register_from_form(values, size_text, false_flags_text, cap, calibrate)
-    return res.to_dict(), register
+def plan_form_job(form: dict) -> tuple[dict | None, str | None, dict | None]:
+    """The workbench's plan (with the register fields, at the register's alpha) from the
+    form's text: see :func:`service.web.workbench_form.compute_plan`."""
+    from .web.workbench_form import compute_plan
+    return compute_plan(form)
 
 
 def forecast_job(db_path: str, region: str | None, budget: int | None, runs: int,

@@ -18,10 +18,11 @@ from .clock import format_time, normalize_utc_text, parse_rfc3339, utc_now
 from .draw_rule import exclusion_text
 from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
-from .schemas import FACILITY_ID_PATTERN, PRINTABLE, RFC3339_PATTERN, FacilityCreate, \
-    RecordBatchCreate, RecordCreate
+from .record_checks import OLD as OLD_RECORD, WORDS as OBSERVATION_WORDS
+from .schemas import DOT_IDS, ID_PATTERN, ID_RULE, NO_NUL, PRINTABLE, RFC3339_PATTERN, \
+    FacilityCreate, RecordBatchCreate, RecordCreate
+from .stats import Recheck, SprtPlan, design
 from .watching import design_for
-from .stats import SprtPlan, design
 from .stats.calibrate import calibrate
 from .store import RecordIn, Store
 
@@ -45,10 +46,17 @@ def field_path(parts) -> str:
 
 
 #: What a pattern means, in words, for the patterns of service/schemas.py.
+def _no_nul(text: str | None, field: str) -> None:
+    """Free text from forms (the API's schemas check the same): NUL is refused."""
+    if text is not None and "\x00" in text:
+        raise Invalid(f"{field} must not contain the NUL character", field=field)
+
+
 PATTERN_WORDS = {
+    NO_NUL: "must not contain the NUL character",
     RFC3339_PATTERN: "must be an RFC 3339 time with offset, e.g. 2026-11-07T08:00:00Z",
     PRINTABLE: "must not contain control characters (tabs, line breaks and the like)",
-    FACILITY_ID_PATTERN: "must not contain / or \\",
+    ID_PATTERN: ID_RULE,
 }
 
 
@@ -91,20 +99,29 @@ class PlanBook:
         return self.specs[name]
 
     def plan(self, name: str) -> SprtPlan:
+        """The plan a new cycle runs: on the apparent rates when re-checks are imperfect."""
         spec = self.spec(name)
         with self._lock:
             if name not in self._plans:
-                base = SprtPlan.wald(spec.p0, spec.p1, spec.alpha, spec.beta,
-                                     max_units=spec.max_units, cut_llr=spec.cut_llr)
+                rc = Recheck(spec.sensitivity, spec.specificity)
+                base = SprtPlan.wald(rc.apparent(spec.p0), rc.apparent(spec.p1), spec.alpha,
+                                     spec.beta, max_units=spec.max_units, cut_llr=spec.cut_llr,
+                                     visit_units=spec.visit_units)
                 self._plans[name] = calibrate(base).plan if spec.calibrate else base
             return self._plans[name]
 
     def design(self, name: str):
+        """The plan's full figures, computed once; never under the lock that plan() takes, so
+        that registering a facility does not wait for a curve (the start-up warm-up computes
+        these in a background thread)."""
         spec = self.spec(name)
         with self._lock:
-            if name not in self._designs:
-                self._designs[name] = design(**spec.design_args())
-            return self._designs[name]
+            done = self._designs.get(name)
+        if done is None:
+            done = design(**spec.design_args())
+            with self._lock:
+                done = self._designs.setdefault(name, done)
+        return done
 
     def watch(self, name: str):
         """The plan's watch chart (``WatchDesign``) or None when the plan has no watch."""
@@ -119,10 +136,13 @@ class PlanBook:
     def snapshot(self, name: str) -> dict:
         """What a new cycle stores about its plan, so editing the config never changes it."""
         spec, plan = self.spec(name), self.plan(name)
-        return {"name": name, "p0": plan.p0, "p1": plan.p1, "alpha": plan.alpha,
+        return {"name": name, "p0": spec.p0, "p1": spec.p1, "alpha": plan.alpha,
                 "beta": plan.beta, "max_units": plan.max_units, "cut_llr": plan.cut_llr,
                 "calibrate": spec.calibrate, "upper_llr": plan.upper_llr,
                 "lower_llr": plan.lower_llr, "require_draw": spec.require_draw,
+                "visit_units": spec.visit_units,
+                "sensitivity": spec.sensitivity, "specificity": spec.specificity,
+                "apparent_p0": plan.p0, "apparent_p1": plan.p1,
                 **self._watch_snapshot(name)}
 
     def _watch_snapshot(self, name: str) -> dict:
@@ -132,14 +152,21 @@ class PlanBook:
         return {"watch": {"m": w.m, "t": w.t, "p1": w.p1, "arl0": w.arl0, "arl_p0": w.arl_p0,
                           "arl_p1": w.arl_p1}}
 
-    def public(self, name: str) -> dict:
+    def public(self, name: str, rates=()) -> dict:
         spec = self.spec(name)
-        d = self.design(name).to_dict()
+        if rates:
+            d = design(**spec.design_args(), rates=tuple(rates)).to_dict()
+        else:
+            d = self.design(name).to_dict()
         return {"name": name, "title": spec.title, "p0": spec.p0, "p1": spec.p1,
                 "alpha": spec.alpha, "beta": spec.beta, "max_units": spec.max_units,
                 "cut_llr": spec.cut_llr, "calibrate": spec.calibrate,
+                "visit_units": spec.visit_units, "sensitivity": spec.sensitivity,
+                "specificity": spec.specificity, "warnings": d["warnings"],
                 "boundaries": d["boundaries"], "exact": d["exact"], "wald": d["wald"],
-                "fixed_sample": d["fixed_sample"],
+                "fixed_sample": d["fixed_sample"], "recheck": d["recheck"],
+                "calibration": d["calibration"], "decision_numbers": d["decision_numbers"],
+                "at_rates": d["at_rates"],
                 "watch": None if spec.watch is None else self.watch(name).to_dict()}
 
 
@@ -232,6 +259,7 @@ class Monitor:
     clock: Callable[[], str] = utc_now
     max_batch: int = 1000
     future_tolerance_s: float = 86_400.0
+    max_record_units: int = 10_000
 
     # -- facilities ------------------------------------------------------------
     def register_facility(self, body: FacilityCreate, actor: Actor) -> dict:
@@ -276,16 +304,27 @@ class Monitor:
         return self.facility(facility_id)
 
     def close_cycle(self, facility_id: str, reason: str, actor: Actor) -> dict:
+        _no_nul(reason, "reason")
         self.store.close_cycle(facility_id, reason, self.clock(), actor)
         return self.facility(facility_id)
 
     # -- records -----------------------------------------------------------------
     def _record_in(self, rec: RecordCreate, latest: str) -> RecordIn:
         """``latest``: the newest acceptable observed_at, as normalised UTC text."""
+        if rec.units > self.max_record_units:
+            raise Invalid(f"units must be at most {self.max_record_units} in one record "
+                          f"(the service's max_record_units), got {rec.units}; split it into "
+                          "several records", field="units")
+        for name in ("record_id", "facility_id"):
+            if getattr(rec, name) in DOT_IDS:
+                raise Invalid(f"{name} {ID_RULE}", field=name)
         try:
             utc_text = normalize_utc_text(rec.observed_at)
         except ValueError as exc:
             raise Invalid(f"observed_at {exc}", field="observed_at") from None
+        except OverflowError:   # valid text whose UTC instant lies outside years 1-9999
+            raise Invalid(f"observed_at {rec.observed_at} lies outside the years 1 to 9999 "
+                          "once converted to UTC", field="observed_at") from None
         if utc_text > latest:
             raise Invalid(f"observed_at {rec.observed_at} lies in the future", field="observed_at")
         return RecordIn(rec.record_id, rec.facility_id, rec.observed_at, utc_text, rec.units,
@@ -392,6 +431,10 @@ class Monitor:
             if out.detail:
                 result["errors"] = [{"field": _prefix(pos, batch) + (out.field or "body"),
                                      "message": out.detail}]
+            elif out.note == OLD_RECORD or (out.note and with_state):
+                # (when the cycle opened is standing: field keys hear only of old dates)
+                result["warnings"] = [{"field": _prefix(pos, batch) + "observed_at",
+                                       "message": OBSERVATION_WORDS[out.note]}]
             if with_state and out.status in ("accepted", "duplicate") and out.facility_id:
                 if out.facility_id not in states:
                     states[out.facility_id] = self.facility(out.facility_id, with_cycles=False)
@@ -414,13 +457,24 @@ class Monitor:
         return {"index": index, "record_id": rid if isinstance(rid, str) else None,
                 "status": "invalid", "code": 422, "seq": None, "errors": errors}
 
-    def records(self, facility_id: str, cycle: int | None) -> dict:
+    def records(self, facility_id: str, cycle: int | None, limit: int | None = None,
+                offset: int = 0) -> dict:
+        """One page of a cycle's records (receipt order) with the LLR after each; all of
+        them when ``limit`` is None (exports)."""
         number = cycle if cycle is not None else self.store.facility(facility_id)["current_cycle"]
-        rows = self.store.records(facility_id, number)
+        rows, total = self.store.records_page(facility_id, number, limit, offset)
         return {"facility_id": facility_id, "cycle": number,
-                "items": [record_public(r) for r in rows]}
+                "items": [record_public(r) for r in rows], "total": total, "limit": limit,
+                "offset": offset}
 
-    def void_record(self, record_id: str, reason: str, actor: Actor) -> dict:
+    def void_record(self, record_id: str, reason: str, actor: Actor,
+                    facility_id: str | None = None) -> dict:
+        """Void a record; with ``facility_id`` (the facility a page or URL names) only a
+        record of that facility (a record's facility never changes after it is stored)."""
+        _no_nul(reason, "reason")
+        if facility_id is not None and self.store.record(record_id)["facility_id"] != facility_id:
+            raise NotFound(f"{record_id!r} is not a record of facility {facility_id!r}",
+                           facility_id=facility_id)
         out = self.store.void_record(record_id, reason, self.clock(), actor)
         rec = out["record"]
         listed = {r["seq"]: r for r in self.store.records(rec["facility_id"], rec["cycle"])}
@@ -440,6 +494,7 @@ class Monitor:
         return self.store.ack_alerts(alert_ids, note, self.clock(), actor)
 
     def ack_alert(self, alert_id: int, note: str | None, actor: Actor) -> dict:
+        _no_nul(note, "note")
         return self.store.ack_alert(alert_id, note, self.clock(), actor)
 
     def actions(self, **filters) -> dict:

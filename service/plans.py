@@ -5,11 +5,12 @@ import tomllib
 from dataclasses import asdict, dataclass, replace
 from pathlib import Path
 
-from .stats import check_rates
+from .stats import Recheck, check_rates
 from .watching import WatchSpec, design_for, watch_from_table
 
 PLAN_KEYS = {"p0", "p1", "alpha", "beta", "max_units", "cut_llr", "calibrate",
-             "remonitor_after_days", "stale_after_days", "title", "require_draw", "watch"}
+             "remonitor_after_days", "stale_after_days", "title", "require_draw", "watch",
+             "visit_units", "sensitivity", "specificity"}
 
 
 class ConfigError(ValueError):
@@ -33,11 +34,15 @@ class PlanSpec:
     remonitor_after_days: float | None = None
     require_draw: bool = False      # only records of drawn units are evidence
     watch: WatchSpec | None = None      # [plans.NAME.watch]: chart after a clear
+    visit_units: int = 1
+    sensitivity: float = 1.0
+    specificity: float = 1.0
 
     def design_args(self) -> dict:
         return {"p0": self.p0, "p1": self.p1, "alpha": self.alpha, "beta": self.beta,
                 "max_units": self.max_units, "cut_llr": self.cut_llr,
-                "calibrate": self.calibrate}
+                "calibrate": self.calibrate, "visit_units": self.visit_units,
+                "sensitivity": self.sensitivity, "specificity": self.specificity}
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -55,7 +60,9 @@ def plan_from_table(name: str, table: dict, source: str = "config") -> PlanSpec:
     watch = table.pop("watch", None)
     spec = PlanSpec(name=name, **table)
     try:
-        check_rates(spec.p0, spec.p1, spec.alpha, spec.beta, spec.max_units, spec.cut_llr)
+        check_rates(spec.p0, spec.p1, spec.alpha, spec.beta, spec.max_units, spec.cut_llr,
+                    spec.visit_units)
+        Recheck(spec.sensitivity, spec.specificity)
     except ValueError as exc:
         raise ConfigError(f"{source}: [plans.{name}]: {exc}") from None
     if watch is not None:

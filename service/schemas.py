@@ -20,7 +20,20 @@ Role = Literal["field", "analyst", "admin"]
 # Printable text: no control characters (checked by pydantic-core's regex engine, which
 # keeps validation of 1000-record batches fast).
 PRINTABLE = r"^[^\x00-\x1f\x7f]*$"
-FACILITY_ID_PATTERN = r"^[^/\\]+$"
+# Free text (notes, reasons) may hold line breaks, never NUL (it cuts strings short in C
+# tools, PDFs and terminals).
+NO_NUL = r"^[^\x00]*$"
+# Ids travel in URLs and on screens, so what could change their meaning there is refused:
+# path separators, C0/C1 control characters, bidirectional controls (U+061C, U+200E/F,
+# U+202A-U+202E, U+2066-U+2069), zero-width characters (U+200B-U+200D, U+2060, U+FEFF) and
+# white space at either end. The ids "." and ".." are refused by the checks that read them
+# (the regex engines here have no look-ahead). Both pydantic-core's engine and Python's re
+# read this pattern (the OpenAPI document carries it).
+ID_FORBIDDEN = r"\x00-\x1f\x7f-\x9f/\\\u061c\u200b-\u200f\u202a-\u202e\u2060-\u2069\ufeff"
+ID_PATTERN = rf"^[^\s{ID_FORBIDDEN}](?:[^{ID_FORBIDDEN}]*[^\s{ID_FORBIDDEN}])?$"
+ID_RULE = ("must not contain '/', '\\', control, bidirectional or zero-width characters, "
+           "nor begin or end with a space, nor be '.' or '..'")
+DOT_IDS = frozenset({".", ".."})
 RFC3339_PATTERN = (r"^\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}:\d{2}(\.\d{1,9})?([Zz]|[+-]\d{2}:\d{2})$")
 
 
@@ -37,9 +50,10 @@ class _Strict(BaseModel):
 class RecordCreate(_Strict):
     """One re-check of one unit (or a few units) of a facility."""
 
-    record_id: StrictStr = Field(min_length=1, max_length=64, pattern=PRINTABLE,
-                                 description="client-made idempotency key (no control characters)")
-    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=PRINTABLE)
+    record_id: StrictStr = Field(min_length=1, max_length=64, pattern=ID_PATTERN,
+                                 description="client-made idempotency key; " + ID_RULE)
+    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=ID_PATTERN,
+                                   description=ID_RULE)
     observed_at: StrictStr = Field(pattern=RFC3339_PATTERN, max_length=40,
                                    description="RFC 3339 date-time with offset, e.g. "
                                                "2026-03-01T09:30:00Z")
@@ -47,7 +61,7 @@ class RecordCreate(_Strict):
     nonconforming: StrictInt = Field(ge=0, le=100_000)
     unit_ref: StrictStr | None = Field(default=None, max_length=200, pattern=PRINTABLE)
     inspector: StrictStr | None = Field(default=None, max_length=200, pattern=PRINTABLE)
-    note: StrictStr | None = Field(default=None, max_length=2000)
+    note: StrictStr | None = Field(default=None, max_length=2000, pattern=NO_NUL)
 
     @model_validator(mode="after")
     def _counts(self):
@@ -62,23 +76,31 @@ class RecordBatchCreate(_Strict):
 
 
 class FacilityCreate(_Strict):
-    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=FACILITY_ID_PATTERN)
+    facility_id: StrictStr = Field(min_length=1, max_length=64, pattern=ID_PATTERN,
+                                   description=ID_RULE)
     name: StrictStr = Field(min_length=1, max_length=200)
     plan: StrictStr = Field(min_length=1, max_length=64)
     region: StrictStr | None = Field(default=None, min_length=1, max_length=64)
 
-    @field_validator("facility_id", "name", "region")
+    @field_validator("facility_id")
+    @classmethod
+    def _not_dots(cls, value):
+        if value in DOT_IDS:
+            raise ValueError(f"facility_id {ID_RULE}")
+        return value
+
+    @field_validator("name", "region")
     @classmethod
     def _no_controls(cls, value, info):
         return value if value is None else _printable(value, info.field_name)
 
 
 class ReasonCreate(_Strict):
-    reason: StrictStr = Field(min_length=1, max_length=2000)
+    reason: StrictStr = Field(min_length=1, max_length=2000, pattern=NO_NUL)
 
 
 class AckCreate(_Strict):
-    note: StrictStr | None = Field(default=None, max_length=2000)
+    note: StrictStr | None = Field(default=None, max_length=2000, pattern=NO_NUL)
 
 
 FindingOutcome = Literal["referred", "no_action", "records_corrected", "retraining_ordered",
@@ -105,7 +127,10 @@ class FindingPublic(BaseModel):
 
 class KeyCreate(_Strict):
     role: Role
-    label: StrictStr = Field(min_length=1, max_length=200)
+    label: StrictStr = Field(min_length=1, max_length=200, pattern=PRINTABLE)
+    expires_at: StrictStr | None = Field(
+        None, max_length=64, description="RFC 3339 date-time at which the key stops working "
+        "(optional; in the future)")
 
 
 class CyclePublic(BaseModel):
@@ -188,6 +213,9 @@ class RecordList(BaseModel):
     facility_id: str
     cycle: int
     items: list[RecordPublic]
+    total: int
+    limit: int
+    offset: int
 
 
 class IngestResult(BaseModel):
@@ -197,6 +225,9 @@ class IngestResult(BaseModel):
     code: int
     seq: int | None = None
     errors: list[dict[str, Any]] | None = None
+    warnings: list[dict[str, Any]] | None = Field(
+        default=None, description="accepted, but worth a look (e.g. observed before its cycle "
+                                  "opened, or more than 365 days before it was received)")
     facility: FacilityPublic | None = None
 
 
@@ -254,6 +285,7 @@ class KeyPublic(BaseModel):
     prefix: str | None
     created_at: str
     revoked_at: str | None
+    expires_at: str | None = None
 
 
 class KeyCreated(KeyPublic):
@@ -277,15 +309,23 @@ class PlanPublic(BaseModel):
     max_units: int | None
     cut_llr: float
     calibrate: bool
+    visit_units: int = 1
+    sensitivity: float = 1.0
+    specificity: float = 1.0
+    warnings: list[dict[str, str]] = []
     boundaries: dict[str, float]
     exact: dict[str, Any]
     wald: dict[str, float]
     fixed_sample: dict[str, Any]
     watch: dict[str, Any] | None = None
+    recheck: dict[str, float] = {}
+    calibration: dict[str, Any] | None = None
+    decision_numbers: list[dict[str, Any]] = []
+    at_rates: list[dict[str, Any]] = []
 
 
 class WebhookCreate(_Strict):
-    url: StrictStr = Field(min_length=8, max_length=2000, pattern=r"^https?://[^\s]+$")
+    url: StrictStr = Field(min_length=8, max_length=2000, pattern=r"^https?://[^\s\x00-\x1f\x7f]+$")
     secret: StrictStr | None = Field(default=None, description="whsec_ + base64; made if absent")
     kinds: list[WebhookKind] = Field(min_length=1)
 
@@ -348,6 +388,37 @@ class CaseFacility(BaseModel):
     registered_at: str
 
 
+class TrailEntryRef(BaseModel):
+    n: int | None = Field(description="entry number in the database's trail")
+    entry_sha256: str | None
+
+
+class DecisionEntryRef(TrailEntryRef):
+    at: str
+    alert_id: int
+    alert_kind: str
+
+
+class RecordEntryRef(TrailEntryRef):
+    seq: int
+    record_id: str
+
+
+class VoidEntryRef(TrailEntryRef):
+    seq: int
+
+
+class CaseFileTrail(BaseModel):
+    """What a case file cites of the tamper-evident trail (README, 'Tamper-evident trail')."""
+
+    decision_entry: DecisionEntryRef | None = Field(
+        description="the entry of the decision: the chain head right after it was appended")
+    record_entries: list[RecordEntryRef]
+    void_entries: list[VoidEntryRef]
+    head_when_made: TrailEntryRef
+    how_to_check: str
+
+
 class CaseFilePublic(BaseModel):
     """The case file of a decided cycle (the PDF shows the same content)."""
 
@@ -369,6 +440,11 @@ class CaseFilePublic(BaseModel):
     estimate_median_unbiased: float = Field(ge=0, le=1)
     estimate_naive: float = Field(ge=0, le=1)
     estimate_naive_note: str
+    estimate_mid_p: float = Field(ge=0, le=1)
+    estimate_note: str
+    recheck: dict[str, Any]
+    looks: dict[str, Any]
+    warnings: list[dict[str, str]]
     plan: dict[str, Any]
     plan_explained: dict[str, str]
     cycle_state: CyclePublic
@@ -376,6 +452,7 @@ class CaseFilePublic(BaseModel):
     draws: dict[str, Any] | None = Field(default=None, description="frames and RFC 3797 draws "
                                          "of the cycle; whether every evidence record was drawn")
     actions: list[ActionPublic]
+    trail: CaseFileTrail | None = None
     curve: list[dict[str, Any]]
     method: str
     caution: str
@@ -385,3 +462,6 @@ class CaseFilePublic(BaseModel):
     after_decision: dict[str, Any] | None = None
     watch: dict[str, Any] | None = None
     findings: list[FindingPublic] = []
+    software_version: str
+    document_id: str = Field(description="SHA-256 of this case file's canonical JSON "
+                                         "(service/casefile/docid.py); printed on every PDF page")

@@ -36,11 +36,12 @@ class ScheduleSettings:
 class DeliverySettings:
     """[delivery]: webhook delivery with exponential backoff and jitter."""
 
-    timeout_s: float = 10.0
+    timeout_s: float = 10.0          # the whole attempt: connect, send, read the whole answer
     first_retry_s: float = 30.0      # the first retry comes within this (jittered down to half)
     max_delay_s: float = 3600.0
     give_up_after_s: float = 86_400.0
     batch: int = 50
+    parallel: int = 8                # subscriptions served at once (each one in order)
 
 
 @dataclass(frozen=True)
@@ -57,6 +58,9 @@ class Settings:
     rate_per_s: float = 200.0                # per API key and worker; 0 turns the limit off
     rate_burst: float = 1000.0
     future_tolerance_s: float = 86_400.0     # observed_at at most this far ahead of the clock
+    max_record_units: int = 10_000           # units in one record (at most 100,000)
+    docs_public: bool = True                 # /docs, /redoc, /openapi.json without a key
+    request_read_timeout_s: float = 30.0     # a request's headers and body must arrive in this
     plans: dict[str, PlanSpec] = field(default_factory=dict)
     schedule: ScheduleSettings = field(default_factory=ScheduleSettings)
     delivery: DeliverySettings = field(default_factory=DeliverySettings)
@@ -70,10 +74,26 @@ _SERVICE_KEYS = {"db": ("db_path", Path), "host": ("host", str), "port": ("port"
                  "workers": ("workers", int), "max_batch": ("max_batch", int),
                  "max_body_bytes": ("max_body_bytes", int),
                  "future_tolerance_s": ("future_tolerance_s", float),
-                 "rate_per_s": ("rate_per_s", float), "rate_burst": ("rate_burst", float)}
+                 "rate_per_s": ("rate_per_s", float), "rate_burst": ("rate_burst", float),
+                 "max_record_units": ("max_record_units", int),
+                 "docs_public": ("docs_public", bool),
+                 "request_read_timeout_s": ("request_read_timeout_s", float)}
+
+#: The schema's own bound on ``units``; max_record_units may not exceed it.
+UNITS_HARD_LIMIT = 100_000
+
+
+_TRUE, _FALSE = {"true", "1", "yes", "on"}, {"false", "0", "no", "off"}
 
 
 def _coerce(name: str, kind, value, where: str):
+    if kind is bool:
+        if isinstance(value, bool):
+            return value
+        word = str(value).strip().lower()
+        if word not in _TRUE | _FALSE:
+            raise ConfigError(f"{where}: {name} must be true or false, got {value!r}")
+        return word in _TRUE
     try:
         out = kind(value)
     except (TypeError, ValueError):
@@ -135,6 +155,9 @@ def load_settings(config_path: str | Path | None = None, environ=None, **overrid
     values["schedule"] = _section(data, "schedule", ScheduleSettings, path)
     values["delivery"] = _section(data, "delivery", DeliverySettings, path)
     values["heavy"] = _section(data, "heavy", HeavySettings, path)
+    if values.get("max_record_units", 0) > UNITS_HARD_LIMIT:
+        raise ConfigError(f"max_record_units may be at most {UNITS_HARD_LIMIT}, got "
+                          f"{values['max_record_units']}")
     settings = Settings(**values)
     known = {f.name for f in fields(Settings)}
     return settings.with_overrides(**{k: v for k, v in overrides.items() if k in known})

@@ -17,11 +17,12 @@ def llr_step(p0: float, p1: float) -> tuple[float, float]:
     return math.log(p1 / p0), math.log((1 - p1) / (1 - p0))
 
 
-def enumerate_outcomes(p0, p1, upper, lower, horizon, cap=None, cut=0.0, tol=1e-9):
+def enumerate_outcomes(p0, p1, upper, lower, horizon, cap=None, cut=0.0, tol=1e-9, visit=1):
     """All 0/1 sequences of length ``horizon``: (n at stop or 0, flagged?, d at stop).
 
     Stopping is decided on a running sum of the per-unit LLR terms, a different
-    computation from the project's count formula.
+    computation from the project's count formula; the boundaries are looked at
+    after every ``visit`` units and at the cap.
     """
     up, down = llr_step(p0, p1)
     outcomes = []
@@ -31,6 +32,8 @@ def enumerate_outcomes(p0, p1, upper, lower, horizon, cap=None, cut=0.0, tol=1e-
         for i, x in enumerate(seq, start=1):
             total += up if x else down
             d += x
+            if i % visit and i != cap:
+                continue
             if total >= upper - tol:
                 result = (i, True, d)
                 break
@@ -44,9 +47,9 @@ def enumerate_outcomes(p0, p1, upper, lower, horizon, cap=None, cut=0.0, tol=1e-
     return outcomes
 
 
-def brute_force_figures(p0, p1, upper, lower, horizon, rates, cap=None, cut=0.0):
+def brute_force_figures(p0, p1, upper, lower, horizon, rates, cap=None, cut=0.0, visit=1):
     """P(flag by horizon), P(clear by horizon), E[N; stopped by horizon] per rate."""
-    outcomes = enumerate_outcomes(p0, p1, upper, lower, horizon, cap, cut)
+    outcomes = enumerate_outcomes(p0, p1, upper, lower, horizon, cap, cut, visit=visit)
     rates = np.asarray(rates, dtype=float)
     flag = np.zeros(rates.size)
     clear = np.zeros(rates.size)

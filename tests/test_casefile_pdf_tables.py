@@ -17,13 +17,14 @@ def test_records_in_fixed_size_tables_all_listed_markup_literal(client, keys):
     n = 2 * CHUNK + 50                     # three tables: CHUNK, CHUNK and 50 rows
     records = []
     for i in range(n):
-        r = dict(base[i % len(base)], seq=i + 1, record_id=f"r{i:05d}")
+        r = dict(base[i % len(base)], seq=i + 1, record_id=f"r{i:05d}", evidence=True,
+                 void=False)
         records.append(r)
     records[7]["record_id"] = "<i>x</i>"                  # short: a plain cell
     records[8]["record_id"] = "<b>" + "long-" * 12 + "</b>"  # wraps: an escaped paragraph
     pdf = render_pdf({**cf, "records": records})
     text = "".join(p.extract_text() for p in pypdf.PdfReader(io.BytesIO(pdf)).pages)
-    listing = text[text.index("Every record of the cycle"):]
+    listing = text[text.index("The records of the cycle in order of receipt"):]
     assert [len(t._cellvalues) for t in record_tables(records)] == [CHUNK + 1, CHUNK + 1, 51]
     squeezed = listing.replace("\n", "")
     assert all(f"r{i:05d}" in squeezed for i in range(n) if i not in (7, 8))

@@ -25,7 +25,8 @@ def test_json_reference_plan():
     assert round(d["exact"]["asn_p0"], 2) == 30.21
     assert round(d["exact"]["asn_p1"], 2) == 22.37
     assert d["plan"] == {"p0": 0.01, "p1": 0.1, "alpha": 0.05, "beta": 0.1,
-                         "max_units": None, "cut_llr": 0.0, "calibrated": False}
+                         "max_units": None, "cut_llr": 0.0, "calibrated": False,
+                         "visit_units": 1, "sensitivity": 1.0, "specificity": 1.0}
     assert len(d["curve"]) >= 41
 
 

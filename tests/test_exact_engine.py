@@ -137,3 +137,26 @@ def test_long_untruncated_plan_still_reaches_the_residual():
     assert ex.residual.max() < 1e-12
     np.testing.assert_allclose(ex.p_flag + ex.p_clear, 1.0, atol=1e-11)
     assert ex.asn[1] > ex.asn[0] > 100
+
+
+@pytest.mark.parametrize("plan_args, cap", [
+    ((0.01, 0.10, 0.05, 0.10), None), ((0.02, 0.08, 0.05, 0.10), 300),
+    ((0.005, 0.01, 0.05, 0.10), None), ((0.05, 0.2, 0.05, 0.1), 50), ((0.1, 0.3, 0.01, 0.02), None),
+])
+def test_column_sweeps_equal_the_unit_by_unit_recursion(plan_args, cap, monkeypatch):
+    # Plans looked at after every unit with small s advance by cumulative sums along each
+    # count d; the unit-by-unit recursion (two vector operations a unit) is a different
+    # computation of the same counts. Both are checked against enumeration above; here against
+    # each other on longer plans (tolerance: sums of up to 1e5 positive terms, relative 1e-10).
+    from service.stats.exact import PathCounts
+    plan = SprtPlan.wald(*plan_args, max_units=cap)
+    rates = [0.0, plan.p0, plan.s, plan.p1, min(1.0, 2 * plan.p1)]
+    sweep = PathCounts(plan)
+    assert sweep._columns_usable()
+    a = sweep.evaluate(rates)
+    monkeypatch.setattr(PathCounts, "_columns_usable", lambda self: False)
+    b = run_exact(plan, rates)
+    np.testing.assert_allclose(a.p_flag, b.p_flag, rtol=1e-10, atol=1e-13)
+    np.testing.assert_allclose(a.asn, b.asn, rtol=1e-10)
+    width = min(a.flag_by_n.shape[1], b.flag_by_n.shape[1])
+    np.testing.assert_allclose(a.flag_by_n[:, :width], b.flag_by_n[:, :width], atol=1e-13)

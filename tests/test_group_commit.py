@@ -9,7 +9,7 @@ import time
 import pytest
 
 from service.monitor import Evidence, replay
-from service.store import RecordIn, plan_of
+from service.store import RecordIn, Store, plan_of
 from service.store.group_commit import GroupCommitter, Job
 
 from .test_store_schema import _monitor
@@ -34,11 +34,14 @@ def _commits(store, monkeypatch, delay=0.0):
     sizes = []
     real = store._commit_group
 
-    def counting(jobs):
-        sizes.append(len(jobs))
-        if len(sizes) == 1:
-            time.sleep(delay)
-        real(jobs)
+    def counting(take):
+        def taking():
+            jobs = take()
+            sizes.append(len(jobs))
+            if len(sizes) == 1:
+                time.sleep(delay)
+            return jobs
+        real(taking)
 
     monkeypatch.setattr(store._committer, "_commit", counting)
     return sizes
@@ -162,7 +165,7 @@ def test_the_writer_stops_on_close_and_restarts_when_needed(tmp_path):
 
 
 def test_an_error_outside_any_job_never_leaves_a_caller_waiting():
-    def broken(jobs):
+    def broken(take):
         raise KeyboardInterrupt            # not an Exception: still reported, not hung on
 
     committer = GroupCommitter(broken, on_exit=lambda: None)
@@ -170,3 +173,27 @@ def test_an_error_outside_any_job_never_leaves_a_caller_waiting():
     with pytest.raises(KeyboardInterrupt):
         job.result()
     committer.stop()
+
+
+def test_jobs_that_queue_while_another_process_writes_join_one_commit(tmp_path, monkeypatch):
+    """The writer thread waits for its turn (the file lock another server process holds)
+    before it takes the queue: every job that arrived meanwhile goes into that one commit,
+    so several processes make bigger batches, not more fsyncs."""
+    store = _store_with_facility(tmp_path)
+    sizes = _commits(store, monkeypatch)
+    other = Store(store.path)            # another Store on the file stands for another process
+
+    async def main():
+        with other._file_lock:           # the other process is writing
+            tasks = [asyncio.ensure_future(store.ingest_async([_rec(f"q-{i}")], "t", NOW))
+                     for i in range(40)]
+            await asyncio.sleep(0.3)     # all 40 have queued; the writer waits on the lock
+            assert sizes == [] and not any(t.done() for t in tasks)
+        return await asyncio.gather(*tasks)
+
+    outcomes = asyncio.run(main())
+    assert [o[0].status for o in outcomes] == ["accepted"] * 40
+    assert sizes == [40]                  # one commit took them all
+    assert store.facility("G-1")["record_count"] == 40
+    other.close()
+    store.close()

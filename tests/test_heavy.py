@@ -115,7 +115,7 @@ def small_pool_client(settings):
         yield app, c, make_keys(app.state.monitor.store)
 
 
-def test_casefile_cached_until_a_void(small_pool_client):
+def test_casefile_cached_until_a_void_or_a_finding(small_pool_client):
     app, client, keys = small_pool_client
     pool = app.state.heavy
     fid = flagged_cycle(client, keys)
@@ -132,9 +132,17 @@ def test_casefile_cached_until_a_void(small_pool_client):
     assert [x["void"] for x in after["records"] if x["record_id"] == f"{fid}-0"] == [True]
     assert any(a["action"] == "record_voided" and a["target"] == f"{fid}-0"
                for a in after["actions"])
+    # a finding is logged on the cycle: the case file is made again and shows it
+    r = client.post(f"/v1/facilities/{fid}/cycles/1/findings",
+                    json={"outcome": "referred", "note": "sent to the county"},
+                    headers=keys.header("analyst"))
+    assert r.status_code == 201, r.text
+    found = client.get(url, headers=keys.header("analyst")).json()
+    assert pool.stats["runs"] == 3
+    assert any(a["action"] == "finding_recorded" for a in found["actions"])
     # another confidence level is another input: its own run
     client.get(url, params={"ci_level": 0.9}, headers=keys.header("analyst"))
-    assert pool.stats["runs"] == 3
+    assert pool.stats["runs"] == 4
 
 
 def test_full_pool_gives_503_problem_with_retry_after(small_pool_client):

@@ -4,6 +4,7 @@ The v4 migration drops the records' content hash; a database written before it m
 every record and still tell a retry (duplicate) from a reused id (conflict), now by comparing
 the stored columns.
 """
+import json
 import sqlite3
 
 import sqlite_utils
@@ -46,9 +47,14 @@ def test_records_written_before_v4_survive_and_still_deduplicate(tmp_path):
     conn.close()
     m = _monitor(db)
     snapshot = m.plans.snapshot("dispensers")
-    m.store.add_facility("OLD-1", "Harbour Road Scales Ltd", "dispensers", snapshot,
-                         "2026-11-01T00:00:00.000000Z", ("test", "admin"))
-    with m.store.write() as w:   # a record as the v3 code stored it, hash and all
+    with m.store.write() as w:   # a facility and a record as the v3 code stored them
+        w.execute("INSERT INTO facilities (facility_id, name, plan, created_at, current_cycle) "
+                  "VALUES ('OLD-1', 'Harbour Road Scales Ltd', 'dispensers', "
+                  "'2026-11-01T00:00:00.000000Z', 1)")
+        w.execute("INSERT INTO cycles (facility_id, cycle, plan_name, plan_json, status, units, "
+                  "nonconforming, llr, opened_at, at_cap, record_count) VALUES ('OLD-1', 1, "
+                  "'dispensers', ?, 'monitoring', 0, 0, 0.0, '2026-11-01T00:00:00.000000Z', 0, "
+                  "0)", (json.dumps(snapshot, sort_keys=True),))
         w.execute("INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, "
                   "observed_utc, received_at, units, nonconforming, unit_ref, inspector, note, "
                   "content_hash, counted, void, key_label) VALUES (1, 'r-1', 'OLD-1', 1, "
@@ -58,7 +64,10 @@ def test_records_written_before_v4_survive_and_still_deduplicate(tmp_path):
         w.execute("UPDATE cycles SET units = 1, nonconforming = 1, record_count = 1")
     assert "content_hash" in _columns(db, "records")
 
-    assert migrate(sqlite_utils.Database(sqlite3.connect(db))) == len(MIGRATIONS)
+    upgrade = sqlite3.connect(db)
+    assert migrate(sqlite_utils.Database(upgrade)) == len(MIGRATIONS)
+    upgrade.commit()          # later migrations write rows (the trail's entries)
+    upgrade.close()
     assert "content_hash" not in _columns(db, "records")
     kept = m.store.record("r-1")
     assert (kept["seq"], kept["observed_at"], kept["inspector"], kept["note"],

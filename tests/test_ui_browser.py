@@ -110,6 +110,7 @@ def test_analyst_workflow(page, site):
     shot(pg, "04-facility-flagged")
     row = pg.locator("tr[data-record='seed-1-2']")
     row.locator("input[name=reason]").fill("unit belonged to another agency")
+    pg.once("dialog", lambda dialog: dialog.accept())   # void asks for confirmation
     row.locator("button:text('Void')").click()
     pg.wait_for_selector(".flash.ok")
     assert "voided" in pg.inner_text(".flash.ok") and "revised" in pg.inner_text(".flash.ok")

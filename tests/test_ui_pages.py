@@ -145,7 +145,15 @@ def test_workbench_reports_bad_input(ui):
                                         "beta": "0.1"})
     assert r.status_code == 200 and "p1 must be larger than p0" in r.text
     r = ui.get("/ui/workbench", params={"p0": "x", "p1": "0.1", "alpha": "0.05", "beta": "0.1"})
-    assert "must be numbers" in r.text
+    assert "p0 must be a number such as 0.05, got &#39;x&#39;" in r.text
+    # every wrong field is named at once, each beside its input
+    r = ui.get("/ui/workbench", params={"p0": "x", "p1": "1.5", "alpha": "0.6", "beta": "0.5",
+                                        "max_units": "ten"})
+    for name in ("p0", "p1", "beta", "max_units"):
+        assert f'id="err-{name}"' in r.text and f'aria-describedby="err-{name}"' in r.text
+    assert 'id="err-alpha"' not in r.text
+    assert "p1 must lie strictly between 0 and 1" in r.text
+    assert "beta alpha + beta must be below 1" in r.text and "cap must be a whole number" in r.text
     r = ui.get("/ui/workbench", params={"p0": "0.01", "p1": "0.1", "alpha": "0.05",
                                         "beta": "0.1", "max_units": "100"})
     from service.stats import design   # the page shows the engine's own figure

@@ -65,3 +65,68 @@ def test_wide_numbers_take_the_two_column_path(client, keys, app, monkeypatch):
     monkeypatch.setattr(v, "_N_BITS", 1)       # units of 3 no longer fit: fall back
     slow = verify_database(Store(db))
     assert fast.ok and slow.ok and fast.records == slow.records == 6
+
+
+def test_cycles_past_255_are_replayed_as_themselves(client, keys, app):
+    # A facility closed and reopened until its cycle number needs more than 8 bits, beside
+    # another facility registered after it; both replay clean, and a tampered state of a
+    # high cycle is named with its own number.
+    fid, other = new_facility(client, keys), new_facility(client, keys)
+    store = app.state.monitor.store
+    store._conn().execute("PRAGMA synchronous = OFF")      # 600 small commits, test speed only
+    actor, now = ("test", "admin"), "2026-12-01T08:00:00.000000Z"
+    snapshot = app.state.monitor.plans.snapshot("dispensers")
+    for _ in range(299):
+        store.close_cycle(fid, "rotation", now, actor)
+        store.open_cycle(fid, snapshot, now, actor)
+    assert store.facility(fid)["current_cycle"] == 300
+    for i in range(4):
+        for f in (fid, other):
+            r = client.post("/v1/records", json=record(f, f"{f}-{i}", int(i == 1)),
+                            headers=keys.header("field"))
+            assert r.status_code in (200, 201), r.text
+    report = verify_database(Store(app.state.settings.db_path))
+    assert report.ok, report.mismatches[:3]
+    assert (report.records, report.cycles) == (8, 301)
+    with store.write() as conn:
+        conn.execute("UPDATE cycles SET nonconforming = 0 WHERE facility_id = ? AND cycle = 300",
+                     (fid,))
+    report = verify_database(Store(app.state.settings.db_path))
+    assert [(m["facility_id"], m["cycle"]) for m in report.mismatches] == [(fid, 300)]
+
+def test_all_cycles_at_once_equal_one_at_a_time():
+    """replay_groups over many cycles of several plans equals replay_counts (itself checked
+    against the record-by-record fold above) cycle by cycle; seeded random cycles."""
+    from service.replay_groups import replay_groups
+    rng = np.random.default_rng(2026_12_02)
+    plans = PLANS + [SprtPlan.wald(0.1, 0.3, 0.01, 0.01, max_units=15, cut_llr=0.0)]
+    cycles = []
+    for _ in range(400):
+        plan = plans[int(rng.integers(len(plans)))]
+        size = int(rng.integers(1, 60))
+        u = rng.integers(1, 4, size=size)
+        rate = rng.choice([0.02, 0.08, 0.2, 0.4])
+        b = rng.binomial(u, rate)
+        cycles.append((plan, u.astype(np.int64), b.astype(np.int64)))
+    sizes = np.array([c[1].size for c in cycles])
+    got = replay_groups(np.r_[0, np.cumsum(sizes)], np.concatenate([c[1] for c in cycles]),
+                        np.concatenate([c[2] for c in cycles]),
+                        g12=np.array([p.g1 + p.g2 for p, _, _ in cycles]),
+                        g2=np.array([p.g2 for p, _, _ in cycles]),
+                        upper=np.array([p.upper_llr for p, _, _ in cycles]),
+                        lower=np.array([p.lower_llr for p, _, _ in cycles]),
+                        cap=np.array([p.max_units or np.iinfo(np.int64).max
+                                      for p, _, _ in cycles]),
+                        cut=np.array([p.cut_llr for p, _, _ in cycles]))
+    at = 0
+    statuses = set()
+    for k, (plan, u, b) in enumerate(cycles):
+        state, counted = replay_counts(plan, np.arange(1, u.size + 1), u, b)
+        after = state.decided_after_units if state.decided_after_units is not None else -1
+        assert (got.status[k], got.units[k], got.nonconforming[k], got.decided_after_units[k],
+                bool(got.at_cap[k])) == (state.status, state.units, state.nonconforming, after,
+                                         state.at_cap)
+        assert list(got.counted[at:at + u.size]) == list(counted)
+        at += u.size
+        statuses.add((state.status, state.at_cap))
+    assert len(statuses) >= 4             # flagged, cleared, monitoring and a cap decision

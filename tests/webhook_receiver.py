@@ -76,3 +76,53 @@ class Receiver:
             self.server.shutdown()
             self.server.server_close()
             self.server = None
+
+
+class TricklingReceiver:
+    """A receiver that reads a request, then answers one byte every ``every_s`` seconds and
+    never finishes (until the client hangs up or ``stop``): a slow or hostile endpoint."""
+
+    def __init__(self, every_s: float = 0.3):
+        import socket
+        self.every_s = every_s
+        self.sock = socket.socket()
+        self.sock.bind(("127.0.0.1", 0))
+        self.sock.listen(16)
+        self.port = self.sock.getsockname()[1]
+        self.url = f"http://127.0.0.1:{self.port}/hook"
+        self.requests = 0
+        self._stop = threading.Event()
+
+    def start(self) -> "TricklingReceiver":
+        threading.Thread(target=self._accept, daemon=True).start()
+        return self
+
+    def _accept(self) -> None:
+        self.sock.settimeout(0.2)
+        while not self._stop.is_set():
+            try:
+                conn, _ = self.sock.accept()
+            except OSError:
+                continue
+            self.requests += 1
+            threading.Thread(target=self._trickle, args=(conn,), daemon=True).start()
+
+    def _trickle(self, conn) -> None:
+        import time
+        answer = b"HTTP/1.1 200 OK\r\ncontent-length: 100000\r\n\r\n" + b"x" * 100_000
+        try:
+            conn.settimeout(5)
+            conn.recv(65536)                     # the request (headers and a small body)
+            for byte in answer:
+                if self._stop.is_set():
+                    break
+                conn.sendall(bytes([byte]))
+                time.sleep(self.every_s)
+        except OSError:
+            pass                                 # the client gave up: what we want
+        finally:
+            conn.close()
+
+    def stop(self) -> None:
+        self._stop.set()
+        self.sock.close()

@@ -15,7 +15,7 @@ from ..store import Store
 from ..version import software_version
 from .limits import BodyLimit, TokenBuckets
 from . import actions, alerts, casefiles, draws, facilities, findings, health, keys, \
-    metrics, plans, problems, records, webhooks
+    metrics, plans, problems, records, storage, webhooks
 from . import program as program_api
 
 DESCRIPTION = (
@@ -30,43 +30,53 @@ def create_app(settings: Settings, clock: Callable[[], str] | None = None) -> Fa
     store.migrate()
     monitor = Monitor(store=store, plans=PlanBook(settings.plans), clock=clock or utc_now,
                       max_batch=settings.max_batch,
-                      future_tolerance_s=settings.future_tolerance_s)
+                      future_tolerance_s=settings.future_tolerance_s,
+                      max_record_units=settings.max_record_units)
     heavy = HeavyPool(settings.heavy)
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):
-        scheduler = http = None
+        from ..inuse import hold_shared
+        in_use = hold_shared(settings.db_path)   # `seqaudit restore` refuses while held
+        scheduler = None
         if settings.schedule.enabled:
-            import httpx2
-
             from ..scheduler import start_scheduler
-            http = httpx2.Client(timeout=settings.delivery.timeout_s, follow_redirects=False)
-            scheduler = start_scheduler(settings, monitor, http)
+            # each delivery run opens its own async client (None): see jobs/delivery.py
+            scheduler = start_scheduler(settings, monitor, None)
         app.state.scheduler = scheduler
+        from ..plan_check import warm_up
+        warm_up(monitor.plans)   # full plan figures in the background: /healthz need not wait
         try:
             yield
         finally:
             if scheduler is not None:
                 scheduler.shutdown(wait=True)
-                http.close()
             heavy.close()
             store.close()
+            in_use.release()
 
+    # docs_public = false: no /docs, /redoc or /openapi.json at all (404)
     app = FastAPI(title="seqaudit", version=software_version(), description=DESCRIPTION,
-                  lifespan=lifespan, docs_url=None, redoc_url=None)
+                  lifespan=lifespan, docs_url=None, redoc_url=None,
+                  openapi_url="/openapi.json" if settings.docs_public else None)
     app.state.settings = settings
     app.state.monitor = monitor
     app.state.heavy = heavy          # case files, plan designs: service/heavy.py
     app.state.buckets = TokenBuckets(settings.rate_per_s, settings.rate_burst)
     app.add_middleware(BodyLimit, limit=settings.max_body_bytes)
     problems.install(app)
+    storage.install(app)           # storage failures as 503 problems; /readyz
     # Routes are matched in the order they were added, one by one: the record route, which
     # takes almost all the traffic, goes first and the dashboard's many pages last.
-    for module in (records, health, facilities, findings, casefiles, draws, alerts, plans,
+    for module in (records, health, storage, facilities, findings, casefiles, draws, alerts, plans,
                    metrics, actions, keys, webhooks, program_api):
         app.include_router(module.router)
     from .docs import install_docs
-    install_docs(app)
+    if settings.docs_public:
+        install_docs(app)
+    else:
+        install_docs(app, docs_url=None, redoc_url=None)
+    records.define_body_schemas(app)
     from ..web.field_app import install_field_app
     from ..web.install import install_ui
     install_field_app(app)

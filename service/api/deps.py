@@ -25,20 +25,33 @@ async def monitor(request: Request) -> Monitor:
     return request.app.state.monitor
 
 
+def _refused(request: Request, detail: str) -> AuthProblem:
+    """The 401 for a request without a usable key; such requests share one bucket per client
+    address, so guessing keys is rate-limited too (429 once it is empty)."""
+    client = request.client.host if request.client else "?"
+    wait = request.app.state.buckets.take("no key from " + client)
+    if wait > 0:
+        return RateLimited(wait)
+    return AuthProblem(401, detail)
+
+
 async def caller(request: Request) -> tuple[str, str]:
     """(label, role) of the key in ``Authorization: Bearer KEY``; 401 otherwise."""
     header = request.headers.get("authorization")
     if not header:
-        raise AuthProblem(401, "send an API key as 'Authorization: Bearer KEY'")
+        raise _refused(request, "send an API key as 'Authorization: Bearer KEY'")
     scheme, _, key = header.partition(" ")
     if scheme.lower() != "bearer" or not key.strip():
-        raise AuthProblem(401, "the Authorization header must be 'Bearer KEY'")
+        raise _refused(request, "the Authorization header must be 'Bearer KEY'")
     digest = hash_key(key.strip())
     row = request.app.state.monitor.store.key_by_hash(digest)
     if row is None or not hmac.compare_digest(row["key_hash"], digest):
-        raise AuthProblem(401, "this API key is not known")
+        raise _refused(request, "this API key is not known")
     if row["revoked_at"] is not None:
-        raise AuthProblem(401, f"this API key was revoked at {row['revoked_at']}")
+        raise _refused(request, f"this API key was revoked at {row['revoked_at']}")
+    if row["expires_at"] is not None and row["expires_at"] <= request.app.state.monitor.clock():
+        raise _refused(request, f"this API key expired at {row['expires_at']}; ask an admin "
+                                "for a new one")
     wait = request.app.state.buckets.take(str(row["id"]))
     if wait > 0:
         raise RateLimited(wait)

@@ -1,4 +1,5 @@
 from typing import Literal
+from urllib.parse import quote
 
 from fastapi import APIRouter, Depends, Query, Request, Response
 
@@ -18,7 +19,8 @@ Sort = Literal["facility_id", "name", "units", "last_record_at", "llr", "llr_pos
 def register(body: FacilityCreate, response: Response, actor=Depends(admin),
              m: Monitor = Depends(monitor)):
     out = m.register_facility(body, actor)
-    response.headers["Location"] = f"/v1/facilities/{body.facility_id}"
+    # one path segment, percent-encoded (a header value must be Latin-1; 'Łódź-1' is not)
+    response.headers["Location"] = f"/v1/facilities/{quote(body.facility_id, safe='')}"
     return out
 
 
@@ -50,14 +52,16 @@ def get_facility(facility_id: str, actor=Depends(analyst), m: Monitor = Depends(
 
 
 @router.get("/{facility_id}/records", response_model=RecordList,
-            summary="Records of a cycle in evidence order, with the LLR after each (analyst)",
+            summary="Records of a cycle in receipt order, with the LLR after each, one page at "
+                    "a time (analyst); as CSV, every record of the cycle",
             responses=CSV_RESPONSE)
 def records(request: Request, facility_id: str, cycle: CycleNo = None,
+            limit: int = Query(1000, ge=1, le=10_000), offset: Offset = 0,
             format: Format | None = FormatQuery, actor=Depends(analyst),
             m: Monitor = Depends(monitor)):
     if wants_csv(request, format):
         return csv_response(m, "records", facility_id=facility_id, cycle=cycle)
-    return m.records(facility_id, cycle)
+    return m.records(facility_id, cycle, limit=limit, offset=offset)
 
 
 @router.post("/{facility_id}/cycles", status_code=201, response_model=FacilityPublic,

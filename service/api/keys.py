@@ -1,5 +1,7 @@
 from fastapi import APIRouter, Depends
 
+from ..clock import normalize_rfc3339
+from ..errors import Invalid
 from ..operations import Monitor
 from ..schemas import KeyCreate, KeyCreated, KeyPublic
 from .deps import Id, admin, monitor
@@ -10,7 +12,13 @@ router = APIRouter(prefix="/v1/keys", tags=["keys"])
 @router.post("", status_code=201, response_model=KeyCreated,
              summary="Create an API key; the key is shown only in this answer (admin)")
 def create_key(body: KeyCreate, actor=Depends(admin), m: Monitor = Depends(monitor)):
-    row, key = m.store.add_key(body.role, body.label, m.clock(), actor)
+    expires = None
+    if body.expires_at is not None:
+        try:
+            expires = normalize_rfc3339(body.expires_at)[1]
+        except ValueError as exc:
+            raise Invalid(f"expires_at {exc}", field="expires_at") from None
+    row, key = m.store.add_key(body.role, body.label, m.clock(), actor, expires_at=expires)
     return {**row, "key": key}
 
 

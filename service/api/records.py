@@ -34,5 +34,22 @@ def void(record_id: str, body: ReasonCreate, actor=Depends(analyst),
     return m.void_record(record_id, body.reason, actor)
 
 
-# Registered so that the OpenAPI document carries both body schemas.
-_SCHEMAS = (RecordCreate, RecordBatchCreate)
+def define_body_schemas(app) -> None:
+    """Put RecordCreate and RecordBatchCreate into the OpenAPI document's components: the
+    record route reads its body itself (one record or a batch), so FastAPI does not see
+    them, and the route's requestBody refers to both."""
+    from pydantic.json_schema import models_json_schema
+
+    made = app.openapi
+
+    def openapi() -> dict:
+        if app.openapi_schema is None:
+            schema = made()
+            _, top = models_json_schema([(RecordCreate, "validation"),
+                                         (RecordBatchCreate, "validation")],
+                                        ref_template="#/components/schemas/{model}")
+            schema.setdefault("components", {}).setdefault("schemas", {}).update(top["$defs"])
+            app.openapi_schema = schema
+        return app.openapi_schema
+
+    app.openapi = openapi

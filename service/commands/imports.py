@@ -19,15 +19,24 @@ RECORD_COLUMNS = ("record_id", "facility_id", "observed_at", "units", "nonconfor
                   "unit_ref", "inspector", "note")
 
 
-def _read(path: Path, required: tuple[str, ...]) -> tuple[list[dict], list[str]]:
-    with path.open(newline="", encoding="utf-8-sig") as fh:
-        reader = csv.DictReader(fh)
-        header = reader.fieldnames or []
-        missing = [c for c in required if c not in header]
-        if missing:
-            raise ValueError(f"{path}: missing column(s) {', '.join(missing)}; "
-                             f"the header must name {', '.join(required)}")
-        return list(reader), header
+def _read(path: Path, required: tuple[str, ...],
+          sheet: str | None = None) -> tuple[list[dict], list[str]]:
+    """Rows of a CSV file, or of an .xlsx workbook's first (or named) worksheet."""
+    if path.suffix.lower() == ".xlsx":
+        from .spreadsheets import read_xlsx
+        rows, header = read_xlsx(path, sheet)
+    else:
+        if sheet is not None:
+            raise ValueError(f"{path}: --sheet applies to .xlsx workbooks only")
+        with path.open(newline="", encoding="utf-8-sig") as fh:
+            reader = csv.DictReader(fh)
+            header = reader.fieldnames or []
+            rows = list(reader)
+    missing = [c for c in required if c not in header]
+    if missing:
+        raise ValueError(f"{path}: missing column(s) {', '.join(missing)}; "
+                         f"the header must name {', '.join(required)}")
+    return rows, header
 
 
 def _report(errors: list[tuple[int, str, str]], total: int, ok: int, what: str,
@@ -45,8 +54,9 @@ def _report(errors: list[tuple[int, str, str]], total: int, ok: int, what: str,
     return 0 if not errors else 1
 
 
-def import_facilities(monitor: Monitor, path: str, errors_file: str | None = None) -> int:
-    rows, _ = _read(Path(path), ("facility_id", "name", "plan"))
+def import_facilities(monitor: Monitor, path: str, errors_file: str | None = None,
+                      sheet: str | None = None) -> int:
+    rows, _ = _read(Path(path), ("facility_id", "name", "plan"), sheet)
     errors: list[tuple[int, str, str]] = []
     progress = Progress("facilities", len(rows))
     ok = 0
@@ -79,12 +89,31 @@ def import_facilities(monitor: Monitor, path: str, errors_file: str | None = Non
     return _report(sorted(errors), len(rows), ok, "facilities", errors_file)
 
 
-def _record_payload(raw: dict) -> dict:
+def _record_payload(raw: dict, zone=None) -> dict:
+    """A row as a record body. A spreadsheet date-time in ``observed_at`` becomes RFC 3339
+    text in ``zone`` (refused when no zone was given); SpreadsheetError says why."""
+    from datetime import date, datetime
     out: dict = {}
     for key in RECORD_COLUMNS:
         value = raw.get(key)
         if value is None or value == "":
             continue
+        if isinstance(value, (datetime, date)):
+            if key != "observed_at":
+                value = value.isoformat()
+            else:
+                from .spreadsheets import SpreadsheetError, local_to_rfc3339
+                if zone is None:
+                    raise SpreadsheetError(
+                        "is a spreadsheet date without a time zone; give the zone its times "
+                        "were written in with --time-zone (e.g. --time-zone Europe/London or "
+                        "--time-zone UTC), or write RFC 3339 text such as "
+                        "2026-11-07T08:00:00Z")
+                if not isinstance(value, datetime):
+                    value = datetime(value.year, value.month, value.day)
+                value = local_to_rfc3339(value, zone)
+        elif not isinstance(value, str):
+            value = str(value)     # e.g. a time-only cell: validation names the field
         if key in ("units", "nonconforming"):
             try:
                 value = int(value)
@@ -94,24 +123,35 @@ def _record_payload(raw: dict) -> dict:
     return out
 
 
-def import_records(monitor: Monitor, path: str, errors_file: str | None = None) -> int:
-    rows, _ = _read(Path(path), ("record_id", "facility_id", "observed_at", "nonconforming"))
+def import_records(monitor: Monitor, path: str, errors_file: str | None = None,
+                   time_zone: str | None = None, sheet: str | None = None) -> int:
+    from .spreadsheets import SpreadsheetError, parse_zone
+    zone = parse_zone(time_zone) if time_zone else None
+    rows, _ = _read(Path(path), ("record_id", "facility_id", "observed_at", "nonconforming"),
+                    sheet)
     errors: list[tuple[int, str, str]] = []
     progress = Progress("records", len(rows))
     ok = 0
     actor = (f"import:{Path(path).name}", "admin")
     for start in range(0, len(rows), BATCH):
         chunk = rows[start:start + BATCH]
-        _, report = monitor.post_records({"records": [_record_payload(r) for r in chunk]}, actor,
-                                         with_state=False)
-        for res in report["results"]:
-            line = start + res["index"] + 2
-            if res["status"] in ("accepted", "duplicate"):
-                ok += 1
-            else:
-                for err in res.get("errors") or [{"field": "row", "message": res["status"]}]:
-                    field = re.sub(r"^records\[\d+\]\.?", "", err["field"]) or "row"
-                    errors.append((line, field, err["message"]))
+        bodies, lines = [], []
+        for i, raw in enumerate(chunk, start=start):
+            try:
+                bodies.append(_record_payload(raw, zone))
+                lines.append(i + 2)   # the header is line 1
+            except SpreadsheetError as exc:
+                errors.append((i + 2, "observed_at", str(exc)))
+        if bodies:
+            _, report = monitor.post_records({"records": bodies}, actor, with_state=False)
+            for res in report["results"]:
+                line = lines[res["index"]]
+                if res["status"] in ("accepted", "duplicate"):
+                    ok += 1
+                else:
+                    for err in res.get("errors") or [{"field": "row", "message": res["status"]}]:
+                        field = re.sub(r"^records\[\d+\]\.?", "", err["field"]) or "row"
+                        errors.append((line, field, err["message"]))
         progress.advance(len(chunk))
     progress.finish()
-    return _report(errors, len(rows), ok, "records", errors_file)
+    return _report(sorted(errors), len(rows), ok, "records", errors_file)

@@ -60,16 +60,28 @@ def scheduled_backup(db_path: Path, folder: Path, keep: int, now: str) -> Path:
 
 
 def restore(backup: Path, db_path: Path) -> int:
-    """Bring a checked backup back into ``db_path`` (stop the service first)."""
+    """Bring a checked backup back into ``db_path``.
+
+    Refused (BackupError) while a server holds the database: every running server holds
+    the lock file beside it (:mod:`service.inuse`), and the restore needs it alone.
+    """
+    from ..inuse import InUse, hold_alone
     version = check_database(backup)
-    src = sqlite3.connect(f"file:{backup}?mode=ro", uri=True)
-    dst = sqlite3.connect(db_path, timeout=30.0)
     try:
-        src.backup(dst)
+        held = hold_alone(db_path)
+    except InUse as exc:
+        raise BackupError(str(exc)) from None
+    try:
+        src = sqlite3.connect(f"file:{backup}?mode=ro", uri=True)
+        dst = sqlite3.connect(db_path, timeout=30.0)
+        try:
+            src.backup(dst)
+        finally:
+            dst.close()
+            src.close()
+        check_database(db_path)
     finally:
-        dst.close()
-        src.close()
-    check_database(db_path)
+        held.release()
     return version
 
 

@@ -15,6 +15,14 @@ the p-value for H0 (rate = p0) is p_up(p0); the two-sided 100*level % interval i
 Clopper-Pearson construction carried to the sequential sample space); the median-unbiased
 estimate solves p_up(p) = 1/2.
 
+For a discrete outcome that estimate is median-unbiased on one side only: P(estimate > p)
+<= 1/2 at every rate, but P(estimate < p) can be far above 1/2 (clearing at the first
+chance, often the most likely outcome, has p_up = 1 and gets the estimate 0). Beside it the
+mid-p median-unbiased estimate (Hirji, Tsiatis and Mehta 1989) solves
+p_up(p) - P_p(observed)/2 = 1/2, the average of the upward and downward medians' equations;
+it lies between the two one-sided medians and is less pulled down by early clears (it is
+still 0 for a clear at the very first chance, where no outcome is more extreme downward).
+
 The looks are the records in receipt order (a record of m units is one look after m more
 units); only the looks up to the observed decision enter these sums, so the future is not
 needed. The number of unit paths reaching each (look, d) without stopping does not depend on
@@ -29,6 +37,8 @@ References
        ch. 3.
 .. [3] C. J. Clopper and E. S. Pearson, "The use of confidence or fiducial limits
        illustrated in the case of the binomial", Biometrika 26 (1934), 404-413.
+.. [4] K. F. Hirji, A. A. Tsiatis and C. R. Mehta, "Median unbiased estimation for
+       binary data", The American Statistician 43 (1989), 7-11 (the mid-p version).
 """
 from __future__ import annotations
 
@@ -187,7 +197,8 @@ class SequentialInference:
     n, d : units and nonconforming units at the decision
     p_value : stagewise p-value for H0 (rate = p0), one-sided upward
     ci_level, ci_low, ci_high : exact two-sided interval for the rate
-    estimate_median_unbiased : rate with p_up = 1/2
+    estimate_median_unbiased : rate with p_up = 1/2 (one-sided for discrete outcomes)
+    estimate_mid_p : rate with p_up - P(observed)/2 = 1/2 (Hirji, Tsiatis and Mehta 1989)
     estimate_naive : d / n (biased after a sequential stop)
     at_cap : decided at the cap by the cut rule
     """
@@ -203,6 +214,7 @@ class SequentialInference:
     estimate_median_unbiased: float
     estimate_naive: float
     at_cap: bool
+    estimate_mid_p: float = float("nan")
 
     def to_dict(self) -> dict:
         return dict(self.__dict__)
@@ -300,8 +312,10 @@ def infer(plan: SprtPlan, sizes: list[int], bad: list[int], level: float = 0.95,
     low = _root(order.p_up, tail, increasing=True)
     high = _root(order.p_down, tail, increasing=False)
     median = _root(order.p_up, 0.5, increasing=True)
+    mid_p = _root(lambda x: order.p_up(x) - 0.5 * order.counts.mass(order.exact, x), 0.5,
+                  increasing=True)
     return SequentialInference(
         decision="flagged" if observed.flag else "cleared", n=n, d=d, looks=len(sizes),
         p_value=float(min(max(order.p_up(plan.p0)[0], 0.0), 1.0)), ci_level=level,
         ci_low=low, ci_high=high, estimate_median_unbiased=median, estimate_naive=d / n,
-        at_cap=at_cap)
+        at_cap=at_cap, estimate_mid_p=mid_p)

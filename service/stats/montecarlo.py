@@ -36,7 +36,10 @@ class MonteCarloResult:
 
 def simulate(plan: SprtPlan, p: float, paths: int, rng: np.random.Generator,
              max_steps: int = 1_000_000, chunk: int = 32) -> MonteCarloResult:
-    """Run ``paths`` independent audits of ``plan`` at true rate ``p``."""
+    """Run ``paths`` independent audits of ``plan`` at true rate ``p``.
+
+    The boundaries are checked after every ``plan.visit_units`` units and at the cap.
+    """
     g1 = math.log(plan.p1 / plan.p0)
     g2 = math.log((1.0 - plan.p0) / (1.0 - plan.p1))
     upper, lower = plan.upper_llr - BOUNDARY_TOL, plan.lower_llr + BOUNDARY_TOL
@@ -48,6 +51,7 @@ def simulate(plan: SprtPlan, p: float, paths: int, rng: np.random.Generator,
     d_now = np.zeros(paths, dtype=np.int64)
     n_now = 0
     steps = np.arange(1, chunk + 1)
+    visit = int(getattr(plan, "visit_units", 1) or 1)
     while alive.size and n_now < cap:
         k = min(chunk, cap - n_now)
         hits = rng.random((alive.size, k)) < p
@@ -55,10 +59,15 @@ def simulate(plan: SprtPlan, p: float, paths: int, rng: np.random.Generator,
         n_path = n_now + steps[:k]
         llr = d_path * (g1 + g2) - n_path * g2
         up, down = llr >= upper, llr <= lower
+        if visit > 1:   # the boundaries are looked at after every visit only (and the cap)
+            look = (n_path % visit == 0) | (n_path == cap)
+            up &= look
+            down &= look
         if n_now + k == cap and plan.max_units is not None:
+            inside = ~up[:, -1] & ~down[:, -1]
             last_up = llr[:, -1] >= cut
-            up[:, -1] |= last_up
-            down[:, -1] |= ~last_up
+            up[:, -1] |= inside & last_up
+            down[:, -1] |= inside & ~last_up
         stop = up | down
         done = stop.any(axis=1)
         first = np.argmax(stop, axis=1)

@@ -46,8 +46,16 @@ class PlanInputError(ValueError):
         return (type(self), (self.argument, str(self)))
 
 
+def _whole(name: str, value, low: int) -> None:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+        raise PlanInputError(name, f"{name} must be a whole number, got {value!r}")
+    if value < low:
+        raise PlanInputError(name, f"{name} must be at least {low}, got {value}")
+
+
 def check_rates(p0: float, p1: float, alpha: float, beta: float,
-                max_units: int | None = None, cut_llr: float = 0.0) -> None:
+                max_units: int | None = None, cut_llr: float = 0.0,
+                visit_units: int = 1) -> None:
     """Raise :class:`PlanInputError` naming the first argument that is out of range."""
     for name, value in (("p0", p0), ("p1", p1), ("alpha", alpha), ("beta", beta)):
         if isinstance(value, bool) or not isinstance(value, (int, float, np.floating)) \
@@ -61,11 +69,8 @@ def check_rates(p0: float, p1: float, alpha: float, beta: float,
         raise PlanInputError("beta", f"alpha + beta must be below 1, got alpha={alpha} and "
                              f"beta={beta}")
     if max_units is not None:
-        if isinstance(max_units, bool) or not isinstance(max_units, (int, np.integer)):
-            raise PlanInputError("max_units",
-                                 f"max_units must be a whole number, got {max_units!r}")
-        if max_units < 1:
-            raise PlanInputError("max_units", f"max_units must be at least 1, got {max_units}")
+        _whole("max_units", max_units, 1)
+    _whole("visit_units", visit_units, 1)
     if isinstance(cut_llr, bool) or not isinstance(cut_llr, (int, float, np.floating)) \
             or not math.isfinite(cut_llr):
         raise PlanInputError("cut_llr", f"cut_llr must be a finite number, got {cut_llr!r}")
@@ -88,6 +93,10 @@ class SprtPlan:
         Optional cap N: an open cycle is decided at N units.
     cut_llr : float
         Decision at the cap: flag iff LLR(N, d) >= cut_llr.
+    visit_units : int
+        Units per visit K: the figures of :mod:`service.stats.exact` look at
+        the boundaries after every K units (and at the cap). :meth:`decide`
+        does not use it; the service decides on each record's totals.
     """
 
     p0: float
@@ -98,17 +107,19 @@ class SprtPlan:
     lower_llr: float
     max_units: int | None = None
     cut_llr: float = 0.0
+    visit_units: int = 1
 
     @classmethod
     def wald(cls, p0: float, p1: float, alpha: float, beta: float,
-             max_units: int | None = None, cut_llr: float = 0.0) -> "SprtPlan":
+             max_units: int | None = None, cut_llr: float = 0.0,
+             visit_units: int = 1) -> "SprtPlan":
         """Plan with Wald's boundaries a = ln((1-beta)/alpha), b = ln(beta/(1-alpha))."""
-        check_rates(p0, p1, alpha, beta, max_units, cut_llr)
+        check_rates(p0, p1, alpha, beta, max_units, cut_llr, visit_units)
         return cls(p0=float(p0), p1=float(p1), alpha=float(alpha), beta=float(beta),
                    upper_llr=math.log((1.0 - beta) / alpha),
                    lower_llr=math.log(beta / (1.0 - alpha)),
                    max_units=None if max_units is None else int(max_units),
-                   cut_llr=float(cut_llr))
+                   cut_llr=float(cut_llr), visit_units=int(visit_units))
 
     def with_boundaries(self, upper_llr: float, lower_llr: float) -> "SprtPlan":
         if not lower_llr < upper_llr:
@@ -156,7 +167,8 @@ class SprtPlan:
         n = np.asarray(n, dtype=np.int64)
         G, g2 = self.g1 + self.g2, self.g2
         lim = self.lower_llr + BOUNDARY_TOL
-        d = np.floor((lim + n * g2) / G).astype(np.int64)
+        # clipped in floating point first, so that no level overflows int64
+        d = np.clip(np.floor((lim + n * g2) / G), -2, n + 2).astype(np.int64)
         d = np.where(d * G - n * g2 > lim, d - 1, d)       # rounding up by the floor
         d = np.where((d + 1) * G - n * g2 <= lim, d + 1, d)  # rounding down
         return np.clip(d, -1, n)
@@ -169,12 +181,27 @@ class SprtPlan:
         """Smallest d with LLR(n, d) >= cut_llr (the flag rule at the cap)."""
         return self._first_count_reaching(n, self.cut_llr)
 
+    def cap_numbers(self, n):
+        """(clear if d <=, flag if d >=) at the cap as :meth:`decide` rules there.
+
+        At the cap every count is decided: LLR >= a flags, LLR <= b clears, and
+        what lies between flags iff LLR >= cut_llr. Returns arrays (acc, rej)
+        with rej = acc + 1; acc is -1 where nothing clears and rej is n + 1
+        where nothing flags.
+        """
+        n = np.asarray(n, dtype=np.int64)
+        acc, rej = self.acceptance_numbers(n), self.rejection_numbers(n)
+        rej_cap = np.minimum(rej, np.maximum(acc + 1, self.cut_numbers(n)))
+        return rej_cap - 1, rej_cap
+
     def _first_count_reaching(self, n, level: float):
         """Smallest d with LLR(n, d) >= level (within the tolerance), clipped to [0, n + 1]."""
         n = np.asarray(n, dtype=np.int64)
         G, g2 = self.g1 + self.g2, self.g2
         lim = level - BOUNDARY_TOL
-        d = np.ceil((lim + n * g2) / G).astype(np.int64)
+        # clipped in floating point first, so that a level of any finite size (a cut of
+        # 1e20, say) cannot overflow int64 and reverse the rule
+        d = np.clip(np.ceil((lim + n * g2) / G), -1, n + 2).astype(np.int64)
         d = np.where(d * G - n * g2 < lim, d + 1, d)          # rounding down by the ceil
         d = np.where((d - 1) * G - n * g2 >= lim, d - 1, d)   # rounding up
         return np.clip(d, 0, n + 1)

@@ -5,6 +5,7 @@ import json
 
 from ..alerting import AlertDraft, needs_review
 from ..errors import Conflict, NotFound
+from .trail import alert_content, alert_entry_kind, append_entry
 
 
 class AlertsMixin:
@@ -12,11 +13,14 @@ class AlertsMixin:
         """Insert alerts and, in the same transaction, their webhook outbox rows."""
         ids = []
         for kind, fid, cycle, detail in alerts:
+            text = json.dumps(detail, sort_keys=True)
             cur = conn.execute("INSERT INTO alerts (kind, facility_id, cycle, created_at, state, "
                                "detail, needs_review) VALUES (?, ?, ?, ?, 'open', ?, ?)",
-                               (kind, fid, cycle, now, json.dumps(detail, sort_keys=True),
-                                int(needs_review(kind))))
+                               (kind, fid, cycle, now, text, int(needs_review(kind))))
             ids.append(cur.lastrowid)
+            append_entry(conn, alert_entry_kind(kind),
+                         alert_content(cur.lastrowid, kind, fid, cycle, now, text), now,
+                         ref=cur.lastrowid)
             self._enqueue(conn, cur.lastrowid, kind, fid, cycle, detail, now)
         return ids
 

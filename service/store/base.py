@@ -19,7 +19,13 @@ import sqlite_utils
 from .common import rows_of
 from .group_commit import GroupCommitter
 from .migrations import migrate
+from .trail import action_content, append_entry
 from .writer_lock import WriterLock
+
+CACHE_KIB = 64 * 1024       # per connection, filled only as pages are used
+# Checkpoint every ~40 MB of WAL rather than every 4 MB: random record ids dirty a page of
+# the id index each, and every checkpoint copies each dirty page once more.
+WAL_PAGES = 10_000
 
 
 class StoreBase:
@@ -42,6 +48,12 @@ class StoreBase:
             conn.execute("PRAGMA busy_timeout = 30000")
             conn.execute("PRAGMA journal_mode = WAL")
             conn.execute("PRAGMA synchronous = FULL")
+            # A page cache that holds a batch's dirty pages: random record ids touch a page of
+            # the id index each, and with the 2 MB default cache a batch re-read most of them.
+            # (No memory map: an I/O error on a mapped page is a signal, not an error that the
+            # storage checks can answer.)
+            conn.execute(f"PRAGMA cache_size = -{CACHE_KIB}")
+            conn.execute(f"PRAGMA wal_autocheckpoint = {WAL_PAGES}")
             self._local.conn = conn
         return conn
 
@@ -60,15 +72,23 @@ class StoreBase:
     @contextmanager
     def _transaction(self):
         """BEGIN IMMEDIATE ... COMMIT on this thread's connection; the caller holds _writer."""
+        with self._file_lock, self._begun() as conn:
+            yield conn
+
+    @contextmanager
+    def _begun(self):
+        """BEGIN IMMEDIATE ... COMMIT; the caller holds _writer and the file lock."""
         conn = self._conn()
-        with self._file_lock:
-            conn.execute("BEGIN IMMEDIATE")
-            try:
-                yield conn
-            except BaseException:
-                conn.execute("ROLLBACK")
-                raise
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            yield conn
             conn.execute("COMMIT")
+        except BaseException:
+            # SQLite may have rolled back already (it does on SQLITE_FULL): a ROLLBACK
+            # then would fail and hide the error that matters
+            if conn.in_transaction:
+                conn.execute("ROLLBACK")
+            raise
 
     def read(self, sql: str, params=()) -> list[dict]:
         return rows_of(self._conn().execute(sql, params))
@@ -106,10 +126,13 @@ class StoreBase:
     @staticmethod
     def _log(conn, now, actor, action, detail, facility_id=None, cycle=None, target=None):
         label, role = actor
-        conn.execute("INSERT INTO actions (at, key_label, role, action, facility_id, cycle, "
-                     "target, detail) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-                     (now, label, role, action, facility_id, cycle, target,
-                      json.dumps(detail, sort_keys=True)))
+        text = json.dumps(detail, sort_keys=True)
+        cur = conn.execute("INSERT INTO actions (at, key_label, role, action, facility_id, "
+                           "cycle, target, detail) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                           (now, label, role, action, facility_id, cycle, target, text))
+        append_entry(conn, "action", action_content(cur.lastrowid, now, label, role, action,
+                                                    facility_id, cycle, target, text),
+                     now, ref=cur.lastrowid)
 
     def actions(self, limit=100, offset=0, facility_id=None, cycle=None) -> tuple[list[dict], int]:
         return self._page("actions", "id", {"facility_id": facility_id, "cycle": cycle},

@@ -33,10 +33,13 @@ def plan_of(plan_json: str) -> SprtPlan:
 
 
 def plan_from_snapshot(snapshot: dict) -> SprtPlan:
-    return SprtPlan(p0=snapshot["p0"], p1=snapshot["p1"], alpha=snapshot["alpha"],
+    """The plan a cycle runs. With imperfect re-checks the test runs on the apparent rates
+    (``apparent_p0``, ``apparent_p1``); older snapshots have neither key."""
+    return SprtPlan(p0=snapshot.get("apparent_p0", snapshot["p0"]),
+                    p1=snapshot.get("apparent_p1", snapshot["p1"]), alpha=snapshot["alpha"],
                     beta=snapshot["beta"], upper_llr=snapshot["upper_llr"],
                     lower_llr=snapshot["lower_llr"], max_units=snapshot["max_units"],
-                    cut_llr=snapshot["cut_llr"])
+                    cut_llr=snapshot["cut_llr"], visit_units=snapshot.get("visit_units", 1))
 
 
 
@@ -50,6 +53,11 @@ def where_in(conn, sql: str, values: list, cursors: bool = False):
             yield cur
         else:
             yield from cur
+
+
+def position(llr: float, lower: float, upper: float) -> float:
+    """Where an LLR lies between the boundaries: 0 at the lower, 1 at the upper one."""
+    return (llr - lower) / (upper - lower)
 
 
 def state_of(row: dict) -> CycleState:

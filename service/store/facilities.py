@@ -6,6 +6,7 @@ import json
 from ..errors import Conflict, NotFound
 from ..monitor import CLOSED
 from ..stats import MONITORING
+from .common import position
 
 
 class FacilitiesMixin:
@@ -56,11 +57,16 @@ class FacilitiesMixin:
 
     @staticmethod
     def _insert_cycle(conn, facility_id, cycle, plan_name, snapshot, now):
+        """A new cycle, which becomes the facility's current one (every caller then points
+        ``facilities.current_cycle`` at it): the one before stops being current."""
+        conn.execute("UPDATE cycles SET is_current = 0 WHERE facility_id = ? AND is_current = 1",
+                     (facility_id,))
         conn.execute("INSERT INTO cycles (facility_id, cycle, plan_name, plan_json, status, units, "
-                     "nonconforming, llr, opened_at, at_cap, record_count) "
-                     "VALUES (?, ?, ?, ?, ?, 0, 0, 0.0, ?, 0, 0)",
+                     "nonconforming, llr, opened_at, at_cap, record_count, is_current, "
+                     "llr_position) VALUES (?, ?, ?, ?, ?, 0, 0, 0.0, ?, 0, 0, 1, ?)",
                      (facility_id, cycle, plan_name, json.dumps(snapshot, sort_keys=True),
-                      MONITORING, now))
+                      MONITORING, now, position(0.0, snapshot["lower_llr"],
+                                                snapshot["upper_llr"])))
 
     def facility(self, facility_id: str) -> dict:
         rows = self.read("SELECT f.facility_id, f.name, f.plan, f.created_at, f.current_cycle, "
@@ -73,7 +79,14 @@ class FacilitiesMixin:
 
     def facilities(self, status=None, plan=None, search=None, sort="facility_id",
                    descending=False, limit=100, offset=0, region=None) -> tuple[list[dict], int]:
-        where, params = [], []
+        """One page of facilities with their current cycles, and how many match.
+
+        The count comes from the maintained ``facility_counts`` (a search or a region
+        counts its matches). Ordered by facility id (the primary key) or by position between
+        the boundaries (an index over current cycles), a page reads only its own rows; the
+        other orders sort all current cycles. Ties go by facility id in the same direction.
+        """
+        where, params = ["c.is_current = 1"], []
         if region is not None:
             where.append("f.region = ?")
             params.append(region)
@@ -91,20 +104,29 @@ class FacilitiesMixin:
             where.append("(f.facility_id LIKE ? ESCAPE '\\' OR f.name LIKE ? ESCAPE '\\')")
             pattern = "%" + search.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_") + "%"
             params += [pattern, pattern]
-        clause = f"WHERE {' AND '.join(where)}" if where else ""
-        orders = {"facility_id": "f.facility_id", "name": "f.name", "units": "c.units",
+        clause = f"WHERE {' AND '.join(where)}"
+        orders = {"facility_id": "c.facility_id", "name": "f.name", "units": "c.units",
                   "last_record_at": "c.last_record_at", "llr": "c.llr",
-                  "llr_position": "(c.llr - json_extract(c.plan_json, '$.lower_llr')) / "
-                                  "(json_extract(c.plan_json, '$.upper_llr') - "
-                                  "json_extract(c.plan_json, '$.lower_llr'))"}
-        order = orders[sort] + (" DESC" if descending else "")
-        base = ("FROM facilities f JOIN cycles c ON c.facility_id = f.facility_id "
-                f"AND c.cycle = f.current_cycle {clause}")
-        total = self.read(f"SELECT COUNT(*) AS n {base}", params)[0]["n"]
+                  "llr_position": "c.llr_position"}
+        way = " DESC" if descending else ""
+        order = f"{orders[sort]}{way}, c.facility_id{way}" if sort != "facility_id" \
+            else f"c.facility_id{way}"
+        base = f"FROM cycles c JOIN facilities f ON f.facility_id = c.facility_id {clause}"
+        if search or region is not None:
+            total = self.read(f"SELECT COUNT(*) AS n {base}", params)[0]["n"]
+        else:
+            total = self._facility_count(status, plan)
         rows = self.read(f"SELECT f.facility_id, f.name, f.plan, f.created_at, f.current_cycle, "
-                         f"f.region, c.* {base} ORDER BY {order}, f.facility_id LIMIT ? OFFSET ?",
+                         f"f.region, c.* {base} ORDER BY {order} LIMIT ? OFFSET ?",
                          [*params, limit, offset])
         return rows, total
+
+    def _facility_count(self, status=None, plan=None) -> int:
+        """Facilities with a current cycle of this shown status and plan (maintained)."""
+        where = [f"{k} = ?" for k, v in (("status", status), ("plan", plan)) if v is not None]
+        clause = f"WHERE {' AND '.join(where)}" if where else ""
+        return self.read(f"SELECT COALESCE(SUM(n), 0) AS n FROM facility_counts {clause}",
+                         [v for v in (status, plan) if v is not None])[0]["n"]
 
     def cycles(self, facility_id: str) -> list[dict]:
         return self.read("SELECT * FROM cycles WHERE facility_id = ? ORDER BY cycle",
@@ -118,10 +140,9 @@ class FacilitiesMixin:
         return rows[0]
 
     def status_counts(self) -> dict[str, int]:
-        rows = self.read("SELECT CASE WHEN c.status = 'cleared' AND c.watch_state = "
-                         "'watching' THEN 'watching' ELSE c.status END AS status, COUNT(*) AS n "
-                         "FROM facilities f JOIN cycles c ON c.facility_id = f.facility_id AND "
-                         "c.cycle = f.current_cycle GROUP BY 1")
+        """Facilities by the shown status of their current cycle (maintained counts)."""
+        rows = self.read("SELECT status, SUM(n) AS n FROM facility_counts GROUP BY status "
+                         "HAVING SUM(n) > 0")
         return {r["status"]: r["n"] for r in rows}
 
     def open_cycle(self, facility_id: str, snapshot: dict, now: str, actor) -> int:

@@ -1,8 +1,11 @@
 """Group commit: one writer thread per store commits whatever records have queued.
 
-A request handler on the event loop puts its job on a queue and awaits it. The writer thread takes every job that is waiting, writes them all in one
-transaction (one fsync) and then tells each caller, who is answered only after its records
-are on disk. Handlers on the event loop await the commit without a worker thread of their
+A request handler on the event loop puts its job on a queue and awaits it. The writer thread
+first waits for its turn to write (the store's locks, shared with other server processes),
+then takes every job that is waiting at that moment, writes them all in one transaction (one
+fsync) and then tells each caller, who is answered only after its records are on disk. Jobs
+that queue while another process writes therefore join the next commit: with several
+processes the batches grow instead of the number of fsyncs. Handlers on the event loop await the commit without a worker thread of their
 own, so a request costs no thread hand-over and the GIL has two contenders, not dozens.
 """
 from __future__ import annotations
@@ -39,13 +42,15 @@ def _settle(future: asyncio.Future) -> None:
 
 
 class GroupCommitter:
-    """Runs ``commit(jobs)`` on a writer thread for every group of jobs that queued up.
+    """Runs ``commit(take)`` on a writer thread for every group of jobs that queued up.
 
-    ``commit`` sets each job's outcomes or error; ``on_exit`` runs on the writer thread when
-    it stops (to close that thread's database connection).
+    ``commit`` gets its turn to write, then calls ``take()`` for the jobs waiting at that
+    moment (a list), and sets each job's outcomes or error; ``on_exit`` runs on the writer
+    thread when it stops (to close that thread's database connection).
     """
 
-    def __init__(self, commit: Callable[[list[Job]], None], on_exit: Callable[[], None],
+    def __init__(self, commit: Callable[[Callable[[], list[Job]]], None],
+                 on_exit: Callable[[], None],
                  name: str = "seqaudit-writer"):
         self._commit, self._on_exit, self._name = commit, on_exit, name
         self._jobs: queue.SimpleQueue = queue.SimpleQueue()
@@ -94,17 +99,23 @@ class GroupCommitter:
                 if first is _STOP:
                     return
                 jobs, stop = [first], False
-                while True:             # every job already waiting joins this commit
-                    try:
-                        more = self._jobs.get_nowait()
-                    except queue.Empty:
-                        break
-                    if more is _STOP:
-                        stop = True
-                        break
-                    jobs.append(more)
+
+                def take() -> list[Job]:
+                    """Every job already waiting joins this commit."""
+                    nonlocal stop
+                    while not stop:
+                        try:
+                            more = self._jobs.get_nowait()
+                        except queue.Empty:
+                            break
+                        if more is _STOP:
+                            stop = True
+                            break
+                        jobs.append(more)
+                    return jobs
+
                 try:
-                    self._commit(jobs)
+                    self._commit(take)
                 except BaseException as exc:    # never leave a caller waiting
                     for job in jobs:
                         if job.outcomes is None and job.error is None:

@@ -151,7 +151,60 @@ def _v9(db: sqlite_utils.Database) -> None:
     db["findings"].create_index(["facility_id", "cycle", "id"])
 
 
-MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8, _v9]
+def _v10(db: sqlite_utils.Database) -> None:
+    """The tamper-evident trail (service/store/trail.py), with entries for the rows already
+    there (records, voids, alerts, actions, in that order); keys get an optional expiry."""
+    from .trail import backfill
+
+    db.execute("CREATE TABLE trail (n INTEGER PRIMARY KEY, at TEXT NOT NULL, kind TEXT NOT NULL, "
+               "ref TEXT, content TEXT, prev_sha256 TEXT NOT NULL, entry_sha256 TEXT NOT NULL)")
+    # records are found through records.trail_n (the number of their job's entry)
+    db.execute("CREATE INDEX trail_kind_ref ON trail (kind, ref) WHERE kind != 'records'")
+    db.execute("ALTER TABLE records ADD COLUMN trail_n INTEGER")
+    db.execute("ALTER TABLE keys ADD COLUMN expires_at TEXT")
+    backfill(db.conn)
+
+
+def _v11(db: sqlite_utils.Database) -> None:
+    """Listing columns kept up to date on write, so a page of facilities costs about the same
+    at 100,000 facilities as at 10,000: which cycle is a facility's current one
+    (``is_current``), where its LLR lies between the boundaries (``llr_position``, 0 at the
+    lower and 1 at the upper one; indexed over current cycles for the overview's order), and
+    the number of facilities per plan and shown status of their current cycle
+    (``facility_counts``, kept by triggers, so no page counts the whole table). The shown
+    status is the cycle's status, except that a cleared cycle under its watch chart shows
+    as ``watching``."""
+    db.execute("ALTER TABLE cycles ADD COLUMN is_current INTEGER NOT NULL DEFAULT 0")
+    db.execute("ALTER TABLE cycles ADD COLUMN llr_position REAL")
+    db.execute("UPDATE cycles SET is_current = 1 WHERE cycle = (SELECT f.current_cycle FROM "
+               "facilities f WHERE f.facility_id = cycles.facility_id)")
+    db.execute("UPDATE cycles SET llr_position = (llr - json_extract(plan_json, '$.lower_llr'))"
+               " / (json_extract(plan_json, '$.upper_llr') - json_extract(plan_json, "
+               "'$.lower_llr'))")
+    db.execute("CREATE INDEX cycles_current_position ON cycles (llr_position, facility_id) "
+               "WHERE is_current = 1")
+    db.execute("CREATE TABLE facility_counts (plan TEXT NOT NULL, status TEXT NOT NULL, "
+               "n INTEGER NOT NULL, PRIMARY KEY (plan, status))")
+    shown = ("CASE WHEN {row}.status = 'cleared' AND {row}.watch_state IS 'watching' "
+             "THEN 'watching' ELSE {row}.status END")
+    db.execute("INSERT INTO facility_counts (plan, status, n) SELECT f.plan, "
+               + shown.format(row="c") + ", COUNT(*) FROM facilities f JOIN cycles c ON "
+               "c.facility_id = f.facility_id AND c.is_current = 1 GROUP BY 1, 2")
+    plan_of = "(SELECT f.plan FROM facilities f WHERE f.facility_id = {row}.facility_id)"
+    add = ("INSERT INTO facility_counts (plan, status, n) SELECT " + plan_of.format(row="NEW")
+           + ", " + shown.format(row="NEW") + ", 1 WHERE NEW.is_current = 1 "
+           "ON CONFLICT (plan, status) DO UPDATE SET n = n + 1;")
+    db.execute("CREATE TRIGGER cycles_counted_insert AFTER INSERT ON cycles "
+               "WHEN NEW.is_current = 1 BEGIN " + add + " END")
+    db.execute("CREATE TRIGGER cycles_counted_update AFTER UPDATE OF status, is_current, "
+               "watch_state ON cycles WHEN " + shown.format(row="OLD") + " IS NOT "
+               + shown.format(row="NEW") + " OR OLD.is_current IS NOT NEW.is_current "
+               "BEGIN UPDATE facility_counts SET n = n - 1 WHERE OLD.is_current = 1 AND "
+               "status = " + shown.format(row="OLD") + " AND plan = "
+               + plan_of.format(row="OLD") + "; " + add + " END")
+
+
+MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8, _v9, _v10, _v11]
 
 
 def migrate(db: sqlite_utils.Database) -> int:

@@ -129,13 +129,25 @@ class OutboxMixin:
                          "delivered_at END WHERE id = ?",
                          (status, next_attempt_at, error, outcome, at, outbox_id))
             if disable_reason is not None:
-                hook = conn.execute("SELECT webhook_id FROM outbox WHERE id = ?",
-                                    (outbox_id,)).fetchone()[0]
-                self.disable_webhook(hook, disable_reason, at, conn=conn)
+                hook, gone_at = conn.execute(
+                    "SELECT w.id, w.disabled_at FROM outbox o JOIN webhooks w ON "
+                    "w.id = o.webhook_id WHERE o.id = ?", (outbox_id,)).fetchone()
+                if gone_at is None:      # another run may have disabled it already
+                    self.disable_webhook(hook, disable_reason, at, conn=conn)
             if failed_alert is not None:
                 self._insert_alerts(conn, [AlertDraft("delivery_failed",
                                                       failed_alert["facility_id"],
                                                       failed_alert["cycle"], failed_alert)], at)
+
+    def defer_deliveries(self, outbox_ids: list[int], until: str) -> None:
+        """Let pending deliveries wait until ``until`` without counting an attempt (their
+        subscription's receiver just failed; they are tried after it recovers)."""
+        if not outbox_ids:
+            return
+        with self.write() as conn:
+            conn.executemany("UPDATE outbox SET next_attempt_at = MAX(next_attempt_at, ?) "
+                             "WHERE id = ? AND status = 'pending'",
+                             [(until, i) for i in outbox_ids])
 
     def deliveries(self, hook_id: int, limit: int = 100, offset: int = 0) -> tuple[list[dict], int]:
         self.webhook(hook_id)

@@ -1,15 +1,18 @@
 """Inspection records: ingest (group commit), a cycle's records, voids."""
 from __future__ import annotations
 
+import operator
 import sqlite3
 from typing import NamedTuple
 
 from ..alerting import decision_alerts, void_alerts
 from ..errors import Conflict, NotFound
+from ..record_checks import observation_note, old_limit
 from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
-from .common import plan_of, rows_of, state_of, where_in
+from .common import plan_of, position, rows_of, state_of, where_in
 from .frames import DrawMarks
 from .group_commit import Job
+from .trail import append_entry, append_records, head, void_content
 
 
 class RecordIn(NamedTuple):
@@ -48,18 +51,53 @@ class IngestOutcome(NamedTuple):
     facility_id: str | None = None
     detail: str | None = None
     field: str | None = None
+    note: str | None = None     # accepted, worth a look: service.record_checks' codes
 
 
 _INSERT_RECORDS = (
     "INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, observed_utc, "
     "received_at, units, nonconforming, unit_ref, inspector, note, counted, key_label, void, "
-    "draw_id, draw_order, excluded) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, ?, ?, ?)")
+    "draw_id, draw_order, excluded, trail_n) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, "
+    "?, ?, ?, ?)")
+# An insert row (above) -> the record's trail content, in trail_hash.RECORD_FIELDS order.
+_TRAIL_ROW = operator.itemgetter(3, 14, 15, 16, 2, 10, 13, 8, 11, 4, 5, 6, 1, 0, 9, 7)
 
 # The sqlite3 module binds a None parameter only after a failed adapter lookup that raises
 # and formats two AttributeErrors (about 0.4 us each; records carry several None fields).
 # With an adapter registered for None the lookup succeeds and None still binds as NULL.
 # None is not a base type, so this keeps the module's fast path for int, float and str.
 sqlite3.register_adapter(type(None), lambda value: None)
+
+
+_UPDATE_STATE = (
+    "UPDATE cycles SET status = ?, units = ?, nonconforming = ?, llr = ?, llr_position = ?, "
+    "decided_seq = ?, decided_at = ?, decided_after_units = ?, at_cap = ?, last_record_at = ?, "
+    "record_count = ? WHERE facility_id = ? AND cycle = ?")
+
+# a cycle whose status stayed: only the counts and the position change (fewer columns to
+# rewrite, and the listing triggers on status are not woken)
+_UPDATE_COUNTS = (
+    "UPDATE cycles SET units = ?, nonconforming = ?, llr = ?, llr_position = ?, "
+    "last_record_at = ?, record_count = ? WHERE facility_id = ? AND cycle = ?")
+
+
+def _state_row(cyc: dict, state: CycleState) -> tuple:
+    """The parameters of _UPDATE_STATE for a cycle row (with its plan) and its new state."""
+    plan = cyc["_plan"]
+    llr = float(plan.llr(state.units, state.nonconforming))
+    return (state.status, state.units, state.nonconforming, llr,
+            position(llr, plan.lower_llr, plan.upper_llr), state.decided_seq, state.decided_at,
+            state.decided_after_units, int(state.at_cap), cyc.get("last_record_at"),
+            cyc.get("record_count", 0), cyc["facility_id"], cyc["cycle"])
+
+
+def _counts_row(cyc: dict, state: CycleState) -> tuple:
+    """The parameters of _UPDATE_COUNTS."""
+    plan = cyc["_plan"]
+    llr = float(plan.llr(state.units, state.nonconforming))
+    return (state.units, state.nonconforming, llr, position(llr, plan.lower_llr, plan.upper_llr),
+            cyc.get("last_record_at"), cyc.get("record_count", 0), cyc["facility_id"],
+            cyc["cycle"])
 
 
 class RecordsMixin:
@@ -77,7 +115,7 @@ class RecordsMixin:
         it returns once the records are committed. Never call it inside :meth:`write`.
         """
         job = Job(items, key_label, now, rejected_before)
-        self._commit_group([job])
+        self._commit_group(lambda: [job])
         return job.result()
 
     async def ingest_async(self, items: list[RecordIn], key_label: str | None, now: str,
@@ -89,11 +127,13 @@ class RecordsMixin:
         job = await self._committer.run_async(Job(items, key_label, now, rejected_before))
         return job.result()
 
-    def _commit_group(self, jobs: list[Job]) -> None:
-        """On the writer thread: all jobs in one transaction, or each alone if that fails."""
-        with self._writer:
+    def _commit_group(self, take) -> None:
+        """On the writer thread: once this process's turn to write has come, every job
+        waiting then (``take()``) in one transaction, or each alone if that fails."""
+        with self._writer, self._file_lock:
+            jobs = take()
             try:
-                with self._transaction() as conn:
+                with self._begun() as conn:
                     for j in jobs:
                         j.outcomes = self._ingest_tx(conn, j)
             except Exception:
@@ -101,7 +141,7 @@ class RecordsMixin:
                 for j in jobs:
                     j.outcomes = None
                     try:
-                        with self._transaction() as conn:
+                        with self._begun() as conn:
                             j.outcomes = self._ingest_tx(conn, j)
                     except Exception as exc:  # reported to that job's caller only
                         j.error = exc
@@ -113,6 +153,8 @@ class RecordsMixin:
         cycles = self._current_cycles(conn, list({it.facility_id for it in items}))
         seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
         marks = DrawMarks(conn, items, cycles)              # drawn units of open cycles
+        oldest = old_limit(now)
+        trail_n, trail_prev = head(conn)      # this job's records become the next entry
         batch: dict[str, tuple[RecordIn, int]] = {}     # ids first seen in this job
         runs: dict[str, tuple[list, list, list, list]] = {}   # facility -> its new records
         inserts, alerts, outcomes = [], [], []
@@ -170,9 +212,11 @@ class RecordsMixin:
             inserts.append((seq, rid, it.facility_id, cyc["cycle"], it.observed_at,
                             it.observed_utc, now, it.units, it.nonconforming, it.unit_ref,
                             it.inspector, it.note, int(unit.excluded is None), key_label,
-                            unit.draw_id, unit.order, unit.excluded))
+                            unit.draw_id, unit.order, unit.excluded, trail_n + 1))
             batch[rid] = (it, seq)
-            outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id))
+            outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id, None, None,
+                                          observation_note(it.observed_utc, cyc["opened_at"],
+                                                           oldest)))
         # each facility's new records in receipt order, as one run through the pure update
         decided, touched, signals = [], [], []
         for fid, (positions, seqs, units, bad) in runs.items():
@@ -211,10 +255,21 @@ class RecordsMixin:
                     inserts[p] = row[:3] + (cyc["cycle"],) + row[4:12] + (1,) + row[13:]
                 if not positions:
                     break
+        now_head = head(conn) if inserts else (trail_n, trail_prev)
+        if now_head[0] != trail_n:      # entries appended meanwhile (a cycle opened by a signal)
+            trail_n, trail_prev = now_head
+            inserts = [row[:-1] + (trail_n + 1,) for row in inserts]
         conn.executemany(_INSERT_RECORDS, inserts)
         marks.save(conn)
+        if inserts:
+            append_records(conn, trail_n, trail_prev, list(map(_TRAIL_ROW, inserts)), now)
+        # the cycles' new states: one statement for all whose status stayed, one for the rest
+        same = [cyc for cyc in touched if cyc["_state"].status == cyc["status"]]
+        conn.executemany(_UPDATE_COUNTS, [_counts_row(c, c["_state"]) for c in same])
+        if len(same) < len(touched):
+            conn.executemany(_UPDATE_STATE, [_state_row(c, c["_state"]) for c in touched
+                                             if c["_state"].status != c["status"]])
         for cyc in touched:
-            self._write_state(conn, cyc, cyc["_state"])
             self._write_watch(conn, cyc)
         ordered = [(seq, decision_alerts(cyc["facility_id"], cyc["cycle"], cyc["plan_name"],
                                          cyc["_plan"], state, rid))
@@ -250,19 +305,12 @@ class RecordsMixin:
 
     @staticmethod
     def _write_state(conn, cyc: dict, state: CycleState, extra: dict | None = None) -> None:
-        plan = cyc["_plan"]
-        values = {"status": state.status, "units": state.units,
-                  "nonconforming": state.nonconforming,
-                  "llr": float(plan.llr(state.units, state.nonconforming)),
-                  "decided_seq": state.decided_seq, "decided_at": state.decided_at,
-                  "decided_after_units": state.decided_after_units, "at_cap": int(state.at_cap),
-                  "last_record_at": cyc.get("last_record_at"),
-                  "record_count": cyc.get("record_count", 0)}
+        """One cycle's state (a void); ingest writes all its cycles with two executemany."""
+        conn.execute(_UPDATE_STATE, _state_row(cyc, state))
         if extra:
-            values.update(extra)
-        sets = ", ".join(f"{k} = ?" for k in values)
-        conn.execute(f"UPDATE cycles SET {sets} WHERE facility_id = ? AND cycle = ?",
-                     [*values.values(), cyc["facility_id"], cyc["cycle"]])
+            sets = ", ".join(f"{k} = ?" for k in extra)
+            conn.execute(f"UPDATE cycles SET {sets} WHERE facility_id = ? AND cycle = ?",
+                         [*extra.values(), cyc["facility_id"], cyc["cycle"]])
 
     def records(self, facility_id: str, cycle: int) -> list[dict]:
         """A cycle's records in evidence (receipt) order, voids included, with the LLR after each."""
@@ -278,6 +326,40 @@ class RecordsMixin:
         for r in rows:
             r["llr_after"] = llrs.get(r["seq"])
         return rows
+
+    def records_page(self, facility_id: str, cycle: int, limit: int | None, offset: int
+                     ) -> tuple[list[dict], int]:
+        """One page of a cycle's records in receipt order with the LLR after each, and the
+        number of records (``limit`` None: all); time and memory grow with the page, not
+        with the cycle (the LLR before the page is one sum in SQLite)."""
+        cyc = self.cycle(facility_id, cycle)
+        total = self.read("SELECT COUNT(*) AS n FROM records WHERE facility_id = ? AND "
+                          "cycle = ?", (facility_id, cycle))[0]["n"]
+        rows = self.read("SELECT * FROM records WHERE facility_id = ? AND cycle = ? ORDER BY "
+                         "seq LIMIT ? OFFSET ?",
+                         (facility_id, cycle, -1 if limit is None else limit, offset))
+        if not rows:
+            return rows, total
+        units, bad = self._conn().execute(
+            "SELECT COALESCE(SUM(units), 0), COALESCE(SUM(nonconforming), 0) FROM records "
+            "WHERE facility_id = ? AND cycle = ? AND seq < ? AND void = 0 AND counted = 1",
+            (facility_id, cycle, rows[0]["seq"])).fetchone()
+        plan = plan_of(cyc["plan_json"])
+        for r in rows:
+            if r["counted"] and not r["void"]:
+                units, bad = units + r["units"], bad + r["nonconforming"]
+                r["llr_after"] = float(plan.llr(units, bad))
+            else:
+                r["llr_after"] = None
+        return rows, total
+
+    def record_path(self, facility_id: str, cycle: int) -> list[tuple[int, int, int, int]]:
+        """(units, nonconforming, counted, void) of a cycle's evidence and void records in
+        receipt order: what its chart draws (records after the decision are left out)."""
+        return self._conn().execute(
+            "SELECT units, nonconforming, counted, void FROM records WHERE facility_id = ? AND "
+            "cycle = ? AND (counted = 1 OR void = 1) ORDER BY seq",
+            (facility_id, cycle)).fetchall()
 
     def record(self, record_id: str) -> dict:
         rows = self.read("SELECT * FROM records WHERE record_id = ?", (record_id,))
@@ -300,6 +382,8 @@ class RecordsMixin:
             # a drawn unit whose re-check is voided is again to be re-checked
             conn.execute("UPDATE draw_units SET record_seq = NULL WHERE record_seq = ?",
                          (rec["seq"],))
+            append_entry(conn, "void", void_content(rec["seq"], record_id, now, actor[0],
+                                                    reason), now, ref=rec["seq"])
             fid, number = rec["facility_id"], rec["cycle"]
             cyc = rows_of(conn.execute("SELECT * FROM cycles WHERE facility_id = ? AND cycle = ?",
                                      (fid, number)))[0]

@@ -68,11 +68,13 @@ class SecurityHeaders:
 
 
 def install_ui(app: FastAPI) -> None:
+    from .downloads import router as downloads
     app.include_router(router)
     from .program_pages import router as program_router
     app.include_router(program_router)
     from .draws import router as draws_router
     app.include_router(draws_router)
+    app.include_router(downloads)
 
     @app.get("/", include_in_schema=False)
     async def _home():
@@ -116,6 +118,10 @@ def install_ui(app: FastAPI) -> None:
     @app.exception_handler(StarletteHTTPException)
     async def _http(request: Request, exc: StarletteHTTPException):
         if _is_ui(request):
+            detail = str(exc.detail)
+            if exc.status_code == 404 and detail == "Not Found":   # no such route
+                detail = (f"There is no page at {request.url.path}. Check the address, or "
+                          "go back to the overview.")
             return error_page(request, exc.status_code, "Not found" if exc.status_code == 404
-                              else "Request refused", str(exc.detail))
+                              else "Request refused", detail)
         return await api_http(request, exc)

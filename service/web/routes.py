@@ -4,7 +4,7 @@ from __future__ import annotations
 import math
 import secrets
 from pathlib import Path
-from urllib.parse import urlencode
+from urllib.parse import quote, urlencode
 
 from fastapi import APIRouter, Depends, Form, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
@@ -14,7 +14,6 @@ from ..cautions import ASSUMPTIONS, SIGNAL_NOT_VERDICT
 from ..errors import ServiceError
 from ..exports import file_safe
 from ..operations import Monitor
-from ..stats import PlanInputError
 from .sessions import (COOKIE, LOGIN_CSRF_COOKIE, BadCsrf, UiUser, check_csrf,
                        cookie_args, current_user, sign_in)
 from .svg import COLOURS, curve_chart, llr_bar, path_chart
@@ -33,6 +32,15 @@ KIND_TEXT = {"flagged": "Flagged", "watch_signal": "Watch signal",
              "delivery_failed": "Delivery failed", "cleared": "Cleared",
              "cap_reached": "Cap reached"}
 templates.env.globals["kind_text"] = KIND_TEXT
+
+
+def segment(value) -> str:
+    """An id as one URL path segment: every reserved character percent-encoded, '/' too
+    (Jinja's urlencode filter leaves '/' as it is)."""
+    return quote(str(value), safe="")
+
+
+templates.env.filters["segment"] = segment
 PAGE = 50
 
 
@@ -77,7 +85,7 @@ def signin(request: Request, key: str = Form(""), csrf: str = Form(""),
     token, message = sign_in(m.store, key, m.clock())
     if token is None:
         fresh = secrets.token_urlsafe(24)
-        resp = page(request, "signin.html", None, status=401, csrf=fresh, msg=message)
+        resp = page(request, "signin.html", None, status=401, csrf=fresh, error=message)
         resp.set_cookie(LOGIN_CSRF_COOKIE, fresh, max_age=3600, **cookie_args(request))
         return resp
     resp = back("/ui/overview")
@@ -145,25 +153,54 @@ def facility(request: Request, facility_id: str, cycle: int | None = None,
     chart = path_chart(points, cyc["lower_llr"], cyc["upper_llr"], decided, voids,
                        cyc["plan_snapshot"].get("max_units"))
     alerts = m.alerts(facility_id=facility_id, limit=20)["items"]
+    from ..record_checks import observation_notes
     from .after_decision import after_decision_context
     from .draws import draws_context
+    looks = _looks(cyc, records)
     extra = after_decision_context(m, facility_id, cyc, records, bool(after), page_no, PAGE)
     records = extra.pop("records")
     return page(request, "facility.html", user, fac=fac, cyc=cyc, records=records, chart=chart,
                 alerts=alerts, msg=msg, kind=msg_kind, is_current=number == fac["cycle"],
-                draws_ctx=draws_context(m, facility_id, number), **extra)
+                draws_ctx=draws_context(m, facility_id, number), looks=looks,
+                late=observation_notes(records, cyc["opened_at"]), **extra)
+
+
+def _looks(cyc: dict, records: list[dict]) -> dict | None:
+    """The note and exact risks when the cycle's records differ from the plan's visit size."""
+    import json as _json
+    from ..casefile.build import looks_report_for
+    sizes = tuple(r["units"] for r in records if r["evidence"])
+    k = cyc["plan_snapshot"].get("visit_units", 1)
+    if not sizes or all(m == k for m in sizes):
+        return None
+    return looks_report_for(_json.dumps(cyc["plan_snapshot"], sort_keys=True), sizes)
+
+
+@router.post("/facilities/{facility_id}/void")
+def void(request: Request, facility_id: str, record_id: str = Form(""), reason: str = Form(""),
+         csrf: str = Form(""), cycle: int = Form(1), user: UiUser = Depends(current_user),
+         m: Monitor = Depends(monitor)):
+    """The void form: the record id travels in the form, never in the path, so no id can
+    change which URL the browser posts to ('..' included)."""
+    check_csrf(user, csrf)
+    return _void(facility_id, record_id, reason, cycle, user, m)
 
 
 @router.post("/facilities/{facility_id}/records/{record_id:path}/void")
-def void(request: Request, facility_id: str, record_id: str, reason: str = Form(""),
-         csrf: str = Form(""), cycle: int = Form(1), user: UiUser = Depends(current_user),
-         m: Monitor = Depends(monitor)):
+def void_by_path(request: Request, facility_id: str, record_id: str, reason: str = Form(""),
+                 csrf: str = Form(""), cycle: int = Form(1),
+                 user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
     check_csrf(user, csrf)
-    target = f"/ui/facilities/{facility_id}?cycle={cycle}"
+    return _void(facility_id, record_id, reason, cycle, user, m)
+
+
+def _void(facility_id: str, record_id: str, reason: str, cycle: int, user: UiUser,
+          m: Monitor) -> RedirectResponse:
+    target = f"/ui/facilities/{segment(facility_id)}?cycle={cycle}"
     if not reason.strip():
         return back(target, "A reason is required to void a record.", "error")
     try:
-        out = m.void_record(record_id, reason.strip(), user.actor)
+        out = m.void_record(record_id, reason.strip(), user.actor, facility_id=facility_id)
     except ServiceError as exc:
         return back(target, exc.detail, "error")
     note = " The decision was revised." if out["decision_revised"] else ""
@@ -196,22 +233,22 @@ def new_cycle(request: Request, facility_id: str, csrf: str = Form(""),
     try:
         fac = m.open_cycle(facility_id, user.actor)
     except ServiceError as exc:
-        return back(f"/ui/facilities/{facility_id}", exc.detail, "error")
-    return back(f"/ui/facilities/{facility_id}", f"Cycle {fac['cycle']} opened.")
+        return back(f"/ui/facilities/{segment(facility_id)}", exc.detail, "error")
+    return back(f"/ui/facilities/{segment(facility_id)}", f"Cycle {fac['cycle']} opened.")
 
 
 @router.post("/facilities/{facility_id}/close")
 def close(request: Request, facility_id: str, reason: str = Form(""), csrf: str = Form(""),
           user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
     check_csrf(user, csrf)
+    target = f"/ui/facilities/{segment(facility_id)}"
     if not reason.strip():
-        return back(f"/ui/facilities/{facility_id}", "A reason is required to close a cycle.",
-                    "error")
+        return back(target, "A reason is required to close a cycle.", "error")
     try:
         m.close_cycle(facility_id, reason.strip(), user.actor)
     except ServiceError as exc:
-        return back(f"/ui/facilities/{facility_id}", exc.detail, "error")
-    return back(f"/ui/facilities/{facility_id}", "Cycle closed without a decision.")
+        return back(target, exc.detail, "error")
+    return back(target, "Cycle closed without a decision.")
 
 
 @router.get("/facilities/{facility_id}/cycles/{cycle}/casefile.pdf")
@@ -284,51 +321,36 @@ def ack(request: Request, alert_id: int, note: str = Form(""), csrf: str = Form(
 
 # -- plan workbench ---------------------------------------------------------------------------
 @router.get("/workbench", response_class=HTMLResponse)
-async def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha: str = "0.05",
-              beta: str = "0.10", max_units: str = "", calibrate: str = "",
-              register_size: str = "", register_false_flags: str = "",
-              watch_arl0: str = "", watch_p1: str = "",
-              user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
+async def workbench(request: Request, p0: str = "0.02", p1: str = "0.08",
+                    alpha: str = "0.05", beta: str = "0.10", max_units: str = "", calibrate: str = "",
+                    register_size: str = "", register_false_flags: str = "",
+                    watch_arl0: str = "", watch_p1: str = "",
+                    visit_units: str = "1", sensitivity: str = "1", specificity: str = "1",
+                    rate: str = "", cut_llr: str = "0",
+                    user: UiUser = Depends(current_user), m: Monitor = Depends(monitor)):
     form = {"p0": p0, "p1": p1, "alpha": alpha, "beta": beta, "max_units": max_units,
             "calibrate": bool(calibrate), "register_size": register_size,
             "register_false_flags": register_false_flags, "watch_arl0": watch_arl0,
-            "watch_p1": watch_p1}
-    result, error, charts, register = None, None, None, None
+            "watch_p1": watch_p1, "visit_units": visit_units,
+            "sensitivity": sensitivity, "specificity": specificity, "rate": rate,
+            "cut_llr": cut_llr}
+    result, error, charts, register, field_errors = None, None, None, None, {}
     if "p0" in request.query_params:
-        from ..heavy import run_heavy
-        from ..heavy_jobs import design_job
-        try:
-            values = {k: float(form[k]) for k in ("p0", "p1", "alpha", "beta")}
-        except ValueError:
-            error = "p0, p1, alpha and beta must be numbers, e.g. 0.02"
+        from .plan_form import read_plan_form, summary
+        _, field_errors = read_plan_form(form)      # every wrong base field named at once
+        if field_errors:
+            error = summary(field_errors)
         else:
-            cap = None
-            if max_units.strip():
-                try:
-                    cap = int(max_units)
-                except ValueError:
-                    error = "The cap must be a whole number of units, or empty for none."
-            if error is None:
-                try:
-                    # in the heavy pool (a calibration can take a while), cached by inputs
-                    args = (*values.values(), cap, bool(calibrate))
-                    if register_size.strip() or register_false_flags.strip():
-                        from ..heavy_jobs import register_design_job
-                        reg_args = (values, register_size, register_false_flags, cap,
-                                    bool(calibrate))
-                        result, register = await run_heavy(
-                            request.app.state, register_design_job, *reg_args,
-                            key=("register", *args, register_size, register_false_flags))
-                    else:
-                        result = await run_heavy(request.app.state, design_job, *args,
-                                                 key=("design", *args))
-                except PlanInputError as exc:
-                    error = f"{exc.argument}: {exc}"
-                except ValueError as exc:
-                    error = str(exc)
+            # in the heavy pool (a calibration can take a while), cached by the form's text
+            from ..heavy import run_heavy
+            from ..heavy_jobs import plan_form_job
+            result, error, register = await run_heavy(
+                request.app.state, plan_form_job, form,
+                key=("plan_form", *sorted((k, str(v)) for k, v in form.items())))
         if result is not None:
             from .watch_form import watch_figures
-            result["watch"], error = watch_figures(values, watch_arl0, watch_p1)
+            result["watch"], error = watch_figures({"p0": float(p0), "p1": float(p1)},
+                                                   watch_arl0, watch_p1)
         if result is not None:
             p = result["plan"]
             charts = {
@@ -339,4 +361,4 @@ async def workbench(request: Request, p0: str = "0.02", p1: str = "0.08", alpha:
                                    "expected units to a decision", p["p0"], p["p1"],
                                    "Average sample number by true rate")}
     return page(request, "workbench.html", user, form=form, result=result, error=error,
-                charts=charts, register=register)
+                charts=charts, register=register, field_errors=field_errors)

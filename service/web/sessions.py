@@ -9,6 +9,7 @@ from dataclasses import dataclass
 
 from fastapi import Request
 
+from ..clock import parse_rfc3339
 from ..store import hash_key
 
 COOKIE = "seqaudit_session"
@@ -47,11 +48,15 @@ def sign_in(store, key: str, now: str) -> tuple[str | None, str]:
         return None, "That key is not known. Check it and try again."
     if row["revoked_at"] is not None:
         return None, "That key was revoked."
+    if row["expires_at"] is not None and row["expires_at"] <= now:
+        return None, f"That key expired at {row['expires_at']}."
     if row["role"] not in ("analyst", "admin"):
         return None, "Field keys can only post records; the dashboard needs an analyst or admin key."
     token = secrets.token_urlsafe(32)
-    store.create_session(_token_hash(token), row["id"], secrets.token_urlsafe(24), now,
-                         time.time() + SESSION_S)
+    ends = time.time() + SESSION_S
+    if row["expires_at"] is not None:      # a session never outlives its key
+        ends = min(ends, parse_rfc3339(row["expires_at"]).timestamp())
+    store.create_session(_token_hash(token), row["id"], secrets.token_urlsafe(24), now, ends)
     return token, "signed in"
 
 

@@ -35,6 +35,36 @@ def llr_bar(llr: float, lower: float, upper: float, status: str, width: int = 12
         f'fill="{COLOURS.get(status, INK)}" stroke="{INK}" stroke-width="0.8"/></svg>')
 
 
+def nice_ticks(lo: float, hi: float, count: int = 5, whole: bool = False) -> list[float]:
+    """Round tick values within [lo, hi]: steps of 1, 2 or 5 times a power of ten, about
+    ``count`` of them (Heckbert, "Nice numbers for graph labels", Graphics Gems, 1990);
+    ``whole``: steps of at least 1, for counts such as units."""
+    import math
+    span = hi - lo
+    if not span > 0:
+        return [lo]
+    raw = span / count
+    power = 10 ** math.floor(math.log10(raw))
+    ratio = raw / power
+    step = power * (1 if ratio < 1.5 else 2 if ratio < 3 else 5 if ratio < 7 else 10)
+    if whole:
+        step = max(1.0, round(step))
+    first = math.ceil(lo / step - 1e-9) * step
+    ticks, k = [], 0
+    while first + k * step <= hi + 1e-9 * step:
+        ticks.append(round(first + k * step, 10))
+        k += 1
+    return ticks
+
+
+def tick_text(value: float, step: float) -> str:
+    """A tick value with as many decimals as its step needs (0.5 -> 1 decimal)."""
+    import math
+    decimals = max(0, -math.floor(math.log10(step) + 1e-9)) if step < 1 else 0
+    text = f"{value:.{decimals}f}"
+    return "0" if text.strip("-0.") == "" else text
+
+
 class _Frame:
     def __init__(self, xs, ys, width=720, height=300, pad=(56, 18, 24, 44)):
         self.w, self.h = width, height
@@ -54,22 +84,31 @@ class _Frame:
     def y(self, v):
         return self.top + (self.y1 - v) / (self.y1 - self.y0) * (self.h - self.top - self.bottom)
 
-    def axes(self, xlabel: str, ylabel: str, xticks=5, yticks=5, xfmt="{:g}", yfmt="{:g}"):
+    def axes(self, xlabel: str, ylabel: str, xticks=5, yticks=5, xwhole=False, xfmt=None,
+             yfmt=None):
+        """Grid and tick labels at round values (whole numbers on the x axis if ``xwhole``).
+
+        ``xfmt``/``yfmt`` are accepted from older callers and not used: a tick's text has as
+        many decimals as the tick step needs."""
         parts = []
-        for i in range(xticks + 1):
-            v = self.x0 + (self.x1 - self.x0) * i / xticks
+        xs = nice_ticks(self.x0, self.x1, xticks, whole=xwhole)
+        xstep = xs[1] - xs[0] if len(xs) > 1 else 1.0
+        for v in xs:
             X = self.x(v)
             parts.append(f'<line x1="{_f(X)}" y1="{self.top}" x2="{_f(X)}" '
                          f'y2="{self.h - self.bottom}" stroke="{GRID}"/>'
                          f'<text x="{_f(X)}" y="{self.h - self.bottom + 14}" font-size="11" '
-                         f'text-anchor="middle" fill="{INK}">{escape(xfmt.format(v))}</text>')
-        for i in range(yticks + 1):
-            v = self.y0 + (self.y1 - self.y0) * i / yticks
+                         f'text-anchor="middle" fill="{INK}" class="tick-x">'
+                         f'{escape(tick_text(v, xstep))}</text>')
+        ys = nice_ticks(self.y0, self.y1, yticks)
+        ystep = ys[1] - ys[0] if len(ys) > 1 else 1.0
+        for v in ys:
             Y = self.y(v)
             parts.append(f'<line x1="{self.left}" y1="{_f(Y)}" x2="{self.w - self.right}" '
                          f'y2="{_f(Y)}" stroke="{GRID}"/>'
                          f'<text x="{self.left - 6}" y="{_f(Y + 4)}" font-size="11" '
-                         f'text-anchor="end" fill="{INK}">{escape(yfmt.format(v))}</text>')
+                         f'text-anchor="end" fill="{INK}" class="tick-y">'
+                         f'{escape(tick_text(v, ystep))}</text>')
         parts.append(f'<text x="{(self.left + self.w - self.right) / 2}" y="{self.h - 6}" '
                      f'font-size="12" text-anchor="middle" fill="{INK}">{escape(xlabel)}</text>'
                      f'<text x="14" y="{(self.top + self.h - self.bottom) / 2}" font-size="12" '
@@ -89,19 +128,24 @@ def path_chart(points: list[tuple[int, float]], lower: float, upper: float,
     ys = [p[1] for p in points] + [lower, upper]
     fr = _Frame(xs, ys)
     body = [fr.axes("units audited in this cycle (evidence, in order of receipt)",
-                    "log-likelihood ratio", yfmt="{:.1f}")]
+                    "log-likelihood ratio", xwhole=True)]
     for value, colour, name in ((upper, COLOURS["flagged"], "flag boundary"),
                                 (lower, COLOURS["cleared"], "clear boundary")):
         body.append(f'<line x1="{fr.left}" y1="{_f(fr.y(value))}" x2="{fr.w - fr.right}" '
                     f'y2="{_f(fr.y(value))}" stroke="{colour}" stroke-width="2" '
                     f'stroke-dasharray="6 4"/><text x="{fr.w - fr.right - 4}" '
                     f'y="{_f(fr.y(value) - 5)}" font-size="11" text-anchor="end" '
-                    f'fill="{colour}">{name} ({value:.3f})</text>')
+                    f'fill="{colour}" class="boundary-label">{name} ({value:.3f})</text>')
     if cap:
+        mid = (fr.y(upper) + fr.y(lower)) / 2
         body.append(f'<line x1="{_f(fr.x(cap))}" y1="{fr.top}" x2="{_f(fr.x(cap))}" '
                     f'y2="{fr.h - fr.bottom}" stroke="{COLOURS["closed"]}" stroke-dasharray="2 3"/>'
-                    f'<text x="{_f(fr.x(cap) - 4)}" y="{fr.top + 12}" font-size="11" '
-                    f'text-anchor="end" fill="{INK}">cap {cap}</text>')
+                    # written up the cap line, midway between the boundaries: clear of
+                    # the boundary labels, which sit at the right end of their lines
+                    f'<text x="{_f(fr.x(cap) - 5)}" y="{_f(mid)}" font-size="11" '
+                    f'text-anchor="middle" fill="{INK}" class="cap-label" '
+                    f'transform="rotate(-90 {_f(fr.x(cap) - 5)} {_f(mid)})">cap {cap} units'
+                    f'</text>')
     if len(points) > 1:
         steps = []
         for (x0, y0), (x1, y1) in zip(points, points[1:]):
@@ -130,8 +174,7 @@ def curve_chart(curve: list[dict], key: str, wald_key: str, ylabel: str, p0: flo
     pts = [(c["p"], c[key]) for c in curve]
     wald = [(c["p"], c[wald_key]) for c in curve if c.get(wald_key) is not None]
     fr = _Frame([p for p, _ in pts], [v for _, v in pts] + [v for _, v in wald])
-    body = [fr.axes("true rate of nonconforming passes", ylabel, xfmt="{:.3f}",
-                    yfmt="{:.2f}" if key == "p_flag" else "{:.0f}")]
+    body = [fr.axes("true rate of nonconforming passes", ylabel)]
     for value, name in ((p0, "p0"), (p1, "p1")):
         body.append(f'<line x1="{_f(fr.x(value))}" y1="{fr.top}" x2="{_f(fr.x(value))}" '
                     f'y2="{fr.h - fr.bottom}" stroke="{INK}" stroke-dasharray="2 3"/>'

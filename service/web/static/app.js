@@ -14,6 +14,12 @@ document.addEventListener("DOMContentLoaded", () => {
       }
     });
   }
+  // Buttons that undo evidence ask first (the form still posts without script).
+  for (const button of document.querySelectorAll("button[data-confirm]")) {
+    button.addEventListener("click", (event) => {
+      if (!window.confirm(button.dataset.confirm)) event.preventDefault();
+    });
+  }
   // Buttons of forms that change data are disabled once pressed, so a double click posts once.
   for (const form of document.querySelectorAll("form[method=post]")) {
     form.addEventListener("submit", () => {

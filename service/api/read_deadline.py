@@ -1,0 +1,65 @@
+"""A deadline for reading each request: uvicorn's h11 protocol waits without limit for the
+rest of a request's headers or body, so a client sending one byte at a time could hold a
+connection (and a worker's slot) for as long as it liked.
+
+:class:`DeadlineH11Protocol` arms a timer when a connection opens and again whenever it is
+ready for the next request; if the request's headers and body have not fully arrived when it
+fires, the connection is answered 408 (if nothing was sent yet) and closed. The limit is
+``request_read_timeout_s`` (setting, seconds; 0 turns it off), passed to workers in the
+``SEQAUDIT_REQUEST_READ_TIMEOUT_S`` environment variable.
+"""
+from __future__ import annotations
+
+import os
+
+import h11
+from uvicorn.protocols.http.h11_impl import H11Protocol
+
+ENV = "SEQAUDIT_REQUEST_READ_TIMEOUT_S"
+_ANSWER = (b"HTTP/1.1 408 Request Timeout\r\ncontent-type: application/problem+json\r\n"
+           b"connection: close\r\ncontent-length: %d\r\n\r\n%s")
+_BODY = (b'{"type":"/problems/request-timeout","title":"Request timeout","status":408,'
+         b'"detail":"the request did not arrive in time"}')
+
+
+def read_timeout_s() -> float:
+    try:
+        return max(0.0, float(os.environ.get(ENV, "30")))
+    except ValueError:
+        return 30.0
+
+
+class DeadlineH11Protocol(H11Protocol):
+    def connection_made(self, transport) -> None:
+        super().connection_made(transport)
+        self._arm_read_deadline()
+
+    def on_response_complete(self) -> None:
+        super().on_response_complete()
+        self._arm_read_deadline()
+
+    def connection_lost(self, exc) -> None:
+        timer = getattr(self, "_read_deadline", None)
+        if timer is not None:
+            timer.cancel()
+        super().connection_lost(exc)
+
+    def _arm_read_deadline(self) -> None:
+        timer = getattr(self, "_read_deadline", None)
+        if timer is not None:
+            timer.cancel()
+        limit = read_timeout_s()
+        self._read_deadline = self.loop.call_later(limit, self._read_deadline_passed) \
+            if limit > 0 else None
+
+    def _read_deadline_passed(self) -> None:
+        self._read_deadline = None
+        if self.transport.is_closing():
+            return
+        # IDLE: the request line or headers are incomplete; SEND_BODY: the body is
+        if self.conn.their_state not in (h11.IDLE, h11.SEND_BODY):
+            return
+        answered = self.cycle is not None and self.cycle.response_started
+        if not answered:
+            self.transport.write(_ANSWER % (len(_BODY), _BODY))
+        self.transport.close()
