@@ -10,6 +10,9 @@ from fastapi.testclient import TestClient
 from service.api import create_app
 from service.settings import load_settings
 
+# the shared helpers assert too: let pytest explain their failures as it does in test modules
+pytest.register_assert_rewrite("tests.browser", "tests.reference")
+
 _ids = itertools.count(1)
 
 
@@ -75,3 +78,7 @@ def record(facility_id, record_id, nonconforming=0, units=1, **extra) -> dict:
     return {"record_id": record_id, "facility_id": facility_id,
             "observed_at": "2026-11-30T09:15:00Z", "units": units,
             "nonconforming": nonconforming, **extra}
+
+
+# the Playwright fixtures of the browser tests (tests/browser.py), for every test module
+from .browser import browser, page  # noqa: E402, F401

@@ -2,7 +2,9 @@
 
 Nothing here imports the project's lattice engine: the LLR is recomputed from
 p0, p1 and the boundaries with the math module, and outcomes are found by
-enumerating every 0/1 sequence.
+enumerating every 0/1 sequence. The simulation check runs
+:mod:`service.stats.montecarlo`, which simulates paths unit by unit and shares no
+lattice code with the exact engine.
 """
 from __future__ import annotations
 
@@ -67,3 +69,37 @@ def brute_force_figures(p0, p1, upper, lower, horizon, rates, cap=None, cut=0.0,
             clear += prob
         asn += prob * n
     return flag, clear, asn, flag_by_n
+
+
+def assert_near_simulation(plan, rates, exact, seed, paths=20_000):
+    """Check an exact result of ``plan`` at ``rates`` against a seeded Monte Carlo.
+
+    Seeded Monte Carlo (numpy.random.default_rng(seed)), ``paths`` paths per rate, the
+    boundaries looked at as the plan looks at them: P(flag) and ASN must lie within 4
+    standard errors of the simulated ones, which keeps a false failure below 1e-4 per
+    comparison (normal approximation).
+    """
+    from service.stats.montecarlo import simulate
+    rng = np.random.default_rng(seed)
+    for i, p in enumerate(rates):
+        mc = simulate(plan, p, paths, rng)
+        assert mc.open_paths == 0, (p, mc.open_paths)
+        assert abs(mc.p_flag - exact.p_flag[i]) <= 4 * mc.se_p_flag, (p, mc, exact.p_flag[i])
+        assert abs(mc.asn - exact.asn[i]) <= 4 * mc.se_asn, (p, mc, exact.asn[i])
+
+
+def assert_equals_enumeration(plan, exact, rates, horizon, cap=None, cut=0.0, visit=1):
+    """Check an exact result of ``plan`` at ``rates`` against :func:`brute_force_figures`.
+
+    P(flag), P(clear), ASN and P(flag at n) for n <= ``horizon`` over every 0/1 sequence of
+    ``horizon`` units (use a capped plan with ``horizon`` = cap for all four to be whole).
+    Tolerance: sums of at most 2**13 positive terms in float64 (1e-12; 1e-10 for the ASN,
+    whose terms are multiplied by n).
+    """
+    flag, clear, asn, flag_by_n = brute_force_figures(
+        plan.p0, plan.p1, plan.upper_llr, plan.lower_llr, horizon, rates, cap=cap, cut=cut,
+        visit=visit)
+    np.testing.assert_allclose(exact.p_flag, flag, atol=1e-12)
+    np.testing.assert_allclose(exact.p_clear, clear, atol=1e-12)
+    np.testing.assert_allclose(exact.asn, asn, atol=1e-10)
+    np.testing.assert_allclose(exact.flag_by_n[:, :horizon + 1], flag_by_n, atol=1e-12)

@@ -6,31 +6,18 @@ from urllib.parse import urlparse
 
 import pytest
 
-from service.operations import Monitor, PlanBook
 from service.schemas import FacilityCreate
-from service.settings import load_settings
-from service.store import Store
 
-from .conftest import make_keys, record
-from .live_server import LiveServer, quiet_config
-from .test_ui_browser import ARGS, CHROMIUM, shot
+from .browser import BROWSER, LOCAL, new_page, open_as, seeded, serve, shot, sign_in
+from .conftest import record
 
-pytestmark = [pytest.mark.browser,
-              pytest.mark.skipif(CHROMIUM is None, reason="Debian's chromium is not installed "
-                                 "(.ci/run installs it)")]
-LOCAL = ("127.0.0.1", "localhost")
+pytestmark = BROWSER
 
 
 @pytest.fixture(scope="module")
 def site(tmp_path_factory):
-    tmp = tmp_path_factory.mktemp("first-run")
-    db = tmp / "ui.db"
-    settings = load_settings(db_path=db)
-    store = Store(db)
-    store.migrate()
-    keys = make_keys(store)
-    m = Monitor(store=store, plans=PlanBook(settings.plans))
-    actor = ("seed", "admin")
+    seed = seeded(tmp_path_factory, "first-run")
+    m, actor = seed.monitor, seed.actor
     for i in range(12):
         m.register_facility(FacilityCreate(facility_id=f"HV-{500 + i}",
                                            name=f"Harlow Vale Scale Service {i}",
@@ -42,39 +29,28 @@ def site(tmp_path_factory):
                                        plan="scales_capped"), actor)
     batch += [record("HV-520", f"cap-{k}", int(k % 9 == 4)) for k in range(40)]
     m.post_records({"records": batch}, actor, with_state=False)
-    with LiveServer(db, config=quiet_config(tmp)) as server:
-        yield server, keys
-
-
-@pytest.fixture(scope="module")
-def browser():
-    from playwright.sync_api import sync_playwright
-    with sync_playwright() as pw:
-        b = pw.chromium.launch(executable_path=CHROMIUM, args=ARGS)
-        yield b
-        b.close()
+    with serve(seed) as server:
+        yield server, seed.keys
 
 
 @pytest.fixture
 def offline(browser):
-    """A browser context whose every request off the host is aborted (an offline network)."""
-    context = browser.new_context(viewport={"width": 1280, "height": 900})
-    blocked = []
+    """A page whose every request off the host is aborted (an offline network)."""
+    with new_page(browser) as pg:
+        blocked = []
 
-    def gate(route):
-        if urlparse(route.request.url).hostname in LOCAL:
-            route.continue_()
-        else:
-            blocked.append(route.request.url)
-            route.abort()
+        def gate(route):
+            if urlparse(route.request.url).hostname in LOCAL:
+                route.continue_()
+            else:
+                blocked.append(route.request.url)
+                route.abort()
 
-    context.route("**/*", gate)
-    pg = context.new_page()
-    pg.blocked = blocked
-    pg.console_errors = []
-    pg.on("console", lambda msg: msg.type == "error" and pg.console_errors.append(msg.text))
-    yield pg
-    context.close()
+        pg.context.route("**/*", gate)
+        pg.blocked = blocked
+        pg.console_errors = []
+        pg.on("console", lambda msg: msg.type == "error" and pg.console_errors.append(msg.text))
+        yield pg
 
 
 def test_docs_work_with_the_network_blocked(offline, site):
@@ -92,24 +68,6 @@ def test_docs_work_with_the_network_blocked(offline, site):
     assert "bearerKey" in pg.inner_text(".dialog-ux")
     shot(pg, "21-docs-authorize")
     assert pg.blocked == [] and pg.console_errors == [], (pg.blocked, pg.console_errors)
-
-
-@pytest.fixture
-def page(browser, site):
-    context = browser.new_context(viewport={"width": 1280, "height": 900})
-    pg = context.new_page()
-    outside = []
-    pg.on("request", lambda req: urlparse(req.url).hostname not in LOCAL
-          and req.url.startswith("http") and outside.append(req.url))
-    yield pg
-    assert outside == [], f"loaded from outside the host: {outside}"
-    context.close()
-
-
-def sign_in(pg, server, key):
-    pg.goto(server.url + "/ui/signin")
-    pg.fill("#key", key)
-    pg.click("button[type=submit]")
 
 
 def luminance(rgb: str) -> float:
@@ -145,9 +103,7 @@ def test_sign_in_error_is_shown_once(page, site):
 
 def test_acknowledge_button_is_readable(page, site):
     server, keys = site
-    sign_in(page, server, keys.analyst)
-    page.wait_for_url(re.compile(r"/ui/overview"))
-    page.goto(server.url + "/ui/alerts")
+    open_as(page, server, keys.analyst, "/ui/alerts")
     button = page.locator("#alerts button:text('Acknowledge')").first
     fg, bg = button.evaluate("b => [getComputedStyle(b).color, getComputedStyle(b).backgroundColor]")
     assert contrast(fg, bg) >= 4.5, (fg, bg)
@@ -159,9 +115,7 @@ def test_acknowledge_button_is_readable(page, site):
 
 def test_path_chart_ticks_and_labels(page, site):
     server, keys = site
-    sign_in(page, server, keys.analyst)
-    page.wait_for_url(re.compile(r"/ui/overview"))
-    page.goto(server.url + "/ui/facilities/HV-520")
+    open_as(page, server, keys.analyst, "/ui/facilities/HV-520")
     chart = page.locator("svg.chart").first
     xs = chart.locator("text.tick-x").all_text_contents()
     ys = chart.locator("text.tick-y").all_text_contents()
@@ -190,9 +144,7 @@ def test_path_chart_ticks_and_labels(page, site):
 
 def test_void_asks_first(page, site):
     server, keys = site
-    sign_in(page, server, keys.analyst)
-    page.wait_for_url(re.compile(r"/ui/overview"))
-    page.goto(server.url + "/ui/facilities/HV-502")
+    open_as(page, server, keys.analyst, "/ui/facilities/HV-502")
     row = page.locator("tr[data-record='m-10']")
     row.locator("input[name=reason]").fill("typed under the wrong agency")
     asked = []
@@ -216,8 +168,7 @@ def test_void_asks_first(page, site):
 def test_overview_keeps_the_llr_column_at_800px(page, site):
     server, keys = site
     page.set_viewport_size({"width": 800, "height": 1000})
-    sign_in(page, server, keys.analyst)
-    page.wait_for_url(re.compile(r"/ui/overview"))
+    open_as(page, server, keys.analyst)
     th = page.locator("#facilities th.llr")
     assert th.is_visible()
     right = th.evaluate("e => e.getBoundingClientRect().right")
@@ -228,8 +179,7 @@ def test_overview_keeps_the_llr_column_at_800px(page, site):
 
 def test_unknown_page_says_what_was_asked(page, site):
     server, keys = site
-    sign_in(page, server, keys.analyst)
-    page.wait_for_url(re.compile(r"/ui/overview"))
+    open_as(page, server, keys.analyst)
     resp = page.goto(server.url + "/ui/no-such-page")
     assert resp.status == 404
     assert "/ui/no-such-page" in page.inner_text("#error-detail")
@@ -238,8 +188,7 @@ def test_unknown_page_says_what_was_asked(page, site):
 
 def test_download_buttons(page, site):
     server, keys = site
-    sign_in(page, server, keys.admin)
-    page.wait_for_url(re.compile(r"/ui/overview"))
+    open_as(page, server, keys.admin)
     for sel, head in (("#facilities-csv", "facility_id,"), ("#actions-csv", "id,at,")):
         with page.expect_download() as info:
             page.click(sel)

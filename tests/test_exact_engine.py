@@ -5,9 +5,8 @@ import numpy as np
 import pytest
 
 from service.stats import SprtPlan, run_exact
-from service.stats.montecarlo import simulate
 
-from .reference import brute_force_figures
+from .reference import assert_equals_enumeration, assert_near_simulation, brute_force_figures
 
 
 @pytest.mark.parametrize("plan_args, cap", [
@@ -19,14 +18,8 @@ def test_capped_plan_equals_enumeration_of_all_sequences(plan_args, cap):
     # Brute force: every one of the 2**cap sequences, each stopped by a running LLR sum.
     plan = SprtPlan.wald(*plan_args, max_units=cap, cut_llr=0.0)
     rates = [0.0, plan_args[0], 0.15, plan_args[1], 0.6, 1.0]
-    flag, clear, asn, flag_by_n = brute_force_figures(
-        plan.p0, plan.p1, plan.upper_llr, plan.lower_llr, cap, rates, cap=cap, cut=0.0)
-    ex = run_exact(plan, rates)
-    # tolerance: sums of at most 2**13 positive terms in float64
-    np.testing.assert_allclose(ex.p_flag, flag, atol=1e-12)
-    np.testing.assert_allclose(ex.p_clear, clear, atol=1e-12)
-    np.testing.assert_allclose(ex.asn, asn, atol=1e-10)
-    np.testing.assert_allclose(ex.flag_by_n[:, :cap + 1], flag_by_n, atol=1e-12)
+    # tolerance: sums of at most 2**13 positive terms in float64 (tests/reference.py)
+    assert_equals_enumeration(plan, run_exact(plan, rates), rates, cap, cap=cap, cut=0.0)
 
 
 def test_untruncated_plan_matches_enumeration_up_to_a_horizon():
@@ -58,16 +51,10 @@ def test_cut_rule_other_than_zero_equals_enumeration():
 ])
 def test_exact_within_four_standard_errors_of_simulation(plan_args, cap, seed):
     # Seeded Monte Carlo, 20,000 paths per rate; 4 standard errors keeps a
-    # false failure below 1e-4 per comparison.
+    # false failure below 1e-4 per comparison (tests/reference.py).
     plan = SprtPlan.wald(*plan_args, max_units=cap)
     rates = [plan.p0, 0.5 * (plan.p0 + plan.p1), plan.p1]
-    ex = run_exact(plan, rates)
-    rng = np.random.default_rng(seed)
-    for i, p in enumerate(rates):
-        mc = simulate(plan, p, 20_000, rng)
-        assert mc.open_paths == 0
-        assert abs(mc.p_flag - ex.p_flag[i]) <= 4 * mc.se_p_flag
-        assert abs(mc.asn - ex.asn[i]) <= 4 * mc.se_asn
+    assert_near_simulation(plan, rates, run_exact(plan, rates), seed)
 
 
 def test_issue_reference_plan_figures():

@@ -6,7 +6,6 @@ the database exactly once, whatever the network does; a refused one stays in the
 its reason; the app opens with no network once it has been loaded. Screenshots of each screen
 go to artifacts/browser/field-*.png.
 """
-import shutil
 import sqlite3
 import time
 from pathlib import Path
@@ -14,36 +13,19 @@ from pathlib import Path
 import httpx2
 import pytest
 
-from service.store import Store
+from .browser import BROWSER, new_page, seeded, serve
+from .browser import shot as _shot
 
-from .conftest import make_keys
-from .live_server import LiveServer, quiet_config
-
-CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
-ARTIFACTS = Path(__file__).resolve().parent.parent / "artifacts" / "browser"
-pytestmark = [pytest.mark.browser,
-              pytest.mark.skipif(CHROMIUM is None, reason="Debian's chromium is not installed "
-                                 "(.ci/run installs it)")]
-ARGS = ["--headless=new", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-        "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+pytestmark = BROWSER
 WIDTH = 768          # the tablet width the app must work at
 
 
 @pytest.fixture(scope="module")
 def site(tmp_path_factory):
     """A live server with two facilities, each with a registered frame and a draw of 8 units."""
-    tmp = tmp_path_factory.mktemp("field")
-    db = tmp / "field.db"
-    store = Store(db)
-    store.migrate()
-    keys = make_keys(store)
-    store.close()
-    server = LiveServer(db, config=quiet_config(tmp)).start()
-    try:
-        drawn = _seed(server, keys)
-        yield server, keys, drawn, db
-    finally:
-        server.stop()
+    seed = seeded(tmp_path_factory, "field")
+    with serve(seed) as server:
+        yield server, seed.keys, _seed(server, seed.keys), seed.db
 
 
 def _seed(server, keys) -> dict[str, list[str]]:
@@ -67,18 +49,15 @@ def _seed(server, keys) -> dict[str, list[str]]:
     return drawn
 
 
-@pytest.fixture(scope="module")
-def browser():
-    from playwright.sync_api import sync_playwright
-    with sync_playwright() as pw:
-        b = pw.chromium.launch(executable_path=CHROMIUM, args=ARGS)
-        yield b
-        b.close()
-
-
 def shot(pg, name):
-    ARTIFACTS.mkdir(parents=True, exist_ok=True)
-    pg.screenshot(path=str(ARTIFACTS / f"field-{name}.png"), full_page=True)
+    _shot(pg, f"field-{name}")
+
+
+@pytest.fixture
+def tablet(browser, site):
+    """A page at the tablet width in a context of its own."""
+    with new_page(browser, width=WIDTH, height=1000) as pg:
+        yield pg
 
 
 def stored(db: Path, unit_refs: list[str]) -> dict[str, int]:
@@ -126,10 +105,9 @@ def wait_worker(pg):
     pg.wait_for_function("navigator.serviceWorker.controller !== null", timeout=30_000)
 
 
-def test_online_entries_are_stored_and_leave_the_assignments(browser, site):
+def test_online_entries_are_stored_and_leave_the_assignments(tablet, site):
     server, keys, drawn, db = site
-    context = browser.new_context(viewport={"width": WIDTH, "height": 1000})
-    pg = context.new_page()
+    pg = tablet
     pg.goto(server.url + "/field")
     pg.get_by_label("Field key", exact=True).wait_for()
     shot(pg, "sign-in")
@@ -172,16 +150,14 @@ def test_online_entries_are_stored_and_leave_the_assignments(browser, site):
     body = pg.locator("body").inner_text().lower()
     assert "llr" not in body and "flagged" not in body and "cleared" not in body
     shot(pg, "after-sending")
-    context.close()
 
 
-def test_offline_entries_survive_reload_and_restart_and_land_once(browser, site):
+def test_offline_entries_survive_reload_and_restart_and_land_once(tablet, site):
     server, keys, drawn, db = site
-    context = browser.new_context(viewport={"width": WIDTH, "height": 1000})
-    pg = context.new_page()
+    pg = tablet
     sign_in(pg, server, keys.field)
     wait_worker(pg)
-    context.set_offline(True)
+    pg.context.set_offline(True)
     pg.reload()                                 # served by the service worker's cache
     pg.get_by_role("heading", name="Re-check entry").wait_for()
     assert "Offline" in pg.locator("#net").inner_text()
@@ -197,10 +173,9 @@ def test_offline_entries_survive_reload_and_restart_and_land_once(browser, site)
     server.stop()
     server.start()
     assert stored(db, units) == {}
-    context.set_offline(False)
+    pg.context.set_offline(False)
     wait_outbox_empty(pg)
     assert stored(db, units) == {u: 1 for u in units}
-    context.close()
 
 
 def test_flaky_network_neither_doubles_nor_loses(browser, site):
@@ -208,35 +183,31 @@ def test_flaky_network_neither_doubles_nor_loses(browser, site):
     server, keys, drawn, db = site
     # the service worker is blocked here: request interception cannot see requests that
     # pass through one, and this test is about the sender, not the cache
-    context = browser.new_context(viewport={"width": WIDTH, "height": 1000},
-                                  service_workers="block")
-    pg = context.new_page()
-    posts = {"n": 0, "dropped": 0}
+    with new_page(browser, width=WIDTH, height=1000, service_workers="block") as pg:
+        posts = {"n": 0, "dropped": 0}
 
-    def drop_every_other(route):
-        posts["n"] += 1
-        if posts["n"] % 2 == 1:
-            route.fetch()                       # reaches the server, which commits
-            posts["dropped"] += 1
-            route.abort("connectionreset")      # ... but the tablet never hears back
-        else:
-            route.continue_()
+        def drop_every_other(route):
+            posts["n"] += 1
+            if posts["n"] % 2 == 1:
+                route.fetch()                       # reaches the server, which commits
+                posts["dropped"] += 1
+                route.abort("connectionreset")      # ... but the tablet never hears back
+            else:
+                route.continue_()
 
-    sign_in(pg, server, keys.field)
-    pg.route("**/v1/records", drop_every_other)
-    units = [f"PUMP-FLAKY-{i}" for i in range(6)]
-    for unit in units:
-        enter(pg, "SA-FLD-1", unit)
-    wait_outbox_empty(pg, timeout_s=120)
-    assert posts["dropped"] >= 1
-    assert stored(db, units) == {u: 1 for u in units}
-    context.close()
+        sign_in(pg, server, keys.field)
+        pg.route("**/v1/records", drop_every_other)
+        units = [f"PUMP-FLAKY-{i}" for i in range(6)]
+        for unit in units:
+            enter(pg, "SA-FLD-1", unit)
+        wait_outbox_empty(pg, timeout_s=120)
+        assert posts["dropped"] >= 1
+        assert stored(db, units) == {u: 1 for u in units}
 
 
-def test_refused_record_stays_with_its_reason_until_discarded(browser, site):
+def test_refused_record_stays_with_its_reason_until_discarded(tablet, site):
     server, keys, drawn, db = site
-    context = browser.new_context(viewport={"width": WIDTH, "height": 1000})
-    pg = context.new_page()
+    pg = tablet
     sign_in(pg, server, keys.field)
     enter(pg, "SA-NO-SUCH", "PUMP-999")
     entry = pg.locator("#outbox li.refused")
@@ -257,7 +228,6 @@ def test_refused_record_stays_with_its_reason_until_discarded(browser, site):
     pg.get_by_role("button", name="Sign out").click()
     pg.get_by_label("Field key", exact=True).wait_for()
     assert pg.evaluate("localStorage.getItem('seqaudit.field.key')") is None
-    context.close()
 
 
 def test_shell_headers_and_manifest(site):

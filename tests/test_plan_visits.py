@@ -4,9 +4,8 @@ import pytest
 
 from service.stats import SprtPlan, design, run_exact
 from service.stats.inference import LookCounts
-from service.stats.montecarlo import simulate
 
-from .reference import brute_force_figures
+from .reference import assert_equals_enumeration, assert_near_simulation, brute_force_figures
 
 
 @pytest.mark.parametrize("plan_args, cap, visit, cut", [
@@ -20,15 +19,9 @@ def test_grouped_looks_equal_enumeration_of_all_sequences(plan_args, cap, visit,
     # at after every K units and at the cap (tests/reference.py, independent of the engine).
     plan = SprtPlan.wald(*plan_args, max_units=cap, cut_llr=cut, visit_units=visit)
     rates = [0.0, plan_args[0], 0.15, plan_args[1], 0.6, 1.0]
-    flag, clear, asn, flag_by_n = brute_force_figures(
-        plan.p0, plan.p1, plan.upper_llr, plan.lower_llr, cap, rates, cap=cap, cut=cut,
-        visit=visit)
     ex = run_exact(plan, rates)
-    # tolerance: sums of at most 2**13 positive terms in float64
-    np.testing.assert_allclose(ex.p_flag, flag, atol=1e-12)
-    np.testing.assert_allclose(ex.p_clear, clear, atol=1e-12)
-    np.testing.assert_allclose(ex.asn, asn, atol=1e-10)
-    np.testing.assert_allclose(ex.flag_by_n[:, :cap + 1], flag_by_n, atol=1e-12)
+    # tolerance: sums of at most 2**13 positive terms in float64 (tests/reference.py)
+    assert_equals_enumeration(plan, ex, rates, cap, cap=cap, cut=cut, visit=visit)
     # decisions happen at looks only
     looks = [n for n in range(cap + 1) if n % visit == 0 or n == cap]
     off = np.setdiff1d(np.arange(ex.stop_by_n.shape[1]), looks)
@@ -52,16 +45,11 @@ def test_untruncated_grouped_plan_equals_enumeration_up_to_a_horizon():
 ])
 def test_grouped_looks_within_four_standard_errors_of_simulation(plan_args, cap, visit, seed):
     # Seeded Monte Carlo (numpy.random.default_rng), 20,000 paths per rate, boundaries checked
-    # every K units; 4 standard errors keep a false failure below 1e-4 per comparison.
+    # every K units; 4 standard errors keep a false failure below 1e-4 per comparison
+    # (tests/reference.py).
     plan = SprtPlan.wald(*plan_args, max_units=cap, visit_units=visit)
     rates = [plan.p0, 0.5 * (plan.p0 + plan.p1), plan.p1]
-    ex = run_exact(plan, rates)
-    rng = np.random.default_rng(seed)
-    for i, p in enumerate(rates):
-        mc = simulate(plan, p, 20_000, rng)
-        assert mc.open_paths == 0
-        assert abs(mc.p_flag - ex.p_flag[i]) <= 4 * mc.se_p_flag
-        assert abs(mc.asn - ex.asn[i]) <= 4 * mc.se_asn
+    assert_near_simulation(plan, rates, run_exact(plan, rates), seed)
 
 
 def test_grouped_engine_equals_the_look_by_look_convolution():

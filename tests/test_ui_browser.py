@@ -1,39 +1,22 @@
 """The dashboard in a real browser: Playwright driving Debian's headless Chromium against a
-real uvicorn process. Screenshots go to artifacts/browser/."""
+real uvicorn process (tests/browser.py). Screenshots go to artifacts/browser/."""
 import re
-import shutil
 from pathlib import Path
-from urllib.parse import urlparse
 
 import pytest
 
-from service.operations import Monitor, PlanBook
 from service.schemas import FacilityCreate
-from service.settings import load_settings
-from service.store import Store
 
-from .conftest import make_keys, record
-from .live_server import LiveServer, quiet_config
+from .browser import BROWSER, acknowledge_first, open_as, seeded, serve, shot, sign_in
+from .conftest import record
 
-CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
-ARTIFACTS = Path(__file__).resolve().parent.parent / "artifacts" / "browser"
-pytestmark = [pytest.mark.browser,
-              pytest.mark.skipif(CHROMIUM is None, reason="Debian's chromium is not installed "
-                                 "(.ci/run installs it)")]
-ARGS = ["--headless=new", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-        "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+pytestmark = BROWSER
 
 
 @pytest.fixture(scope="module")
 def site(tmp_path_factory):
-    tmp = tmp_path_factory.mktemp("ui")
-    db = tmp / "ui.db"
-    settings = load_settings(db_path=db)
-    store = Store(db)
-    store.migrate()
-    keys = make_keys(store)
-    m = Monitor(store=store, plans=PlanBook(settings.plans))
-    actor = ("seed", "admin")
+    seed = seeded(tmp_path_factory, "ui")
+    m, actor = seed.monitor, seed.actor
     for i in range(40):
         m.register_facility(FacilityCreate(facility_id=f"SA-{300 + i}", name=f"Agency {i}",
                                            plan="dispensers" if i % 2 else "scales"), actor)
@@ -43,49 +26,8 @@ def site(tmp_path_factory):
     batch += [record("SA-305", f"seed-5-{k}", 0) for k in range(40)]     # one cleared
     batch += [record("SA-306", f"seed-6-{k}", int(k == 3)) for k in range(10)]
     m.post_records({"records": batch}, actor, with_state=False)
-    config = quiet_config(tmp)
-    with LiveServer(db, config=config) as server:
-        yield server, keys
-
-
-@pytest.fixture(scope="module")
-def browser():
-    from playwright.sync_api import sync_playwright
-    with sync_playwright() as pw:
-        b = pw.chromium.launch(executable_path=CHROMIUM, args=ARGS)
-        yield b
-        b.close()
-
-
-@pytest.fixture
-def page(browser, site):
-    server, _ = site
-    context = browser.new_context(viewport={"width": 1280, "height": 900})
-    pg = context.new_page()
-    outside = []
-
-    def watch(request):
-        host = urlparse(request.url).hostname
-        if request.url.startswith("http") and host not in ("127.0.0.1", "localhost"):
-            outside.append(request.url)
-
-    pg.on("request", watch)
-    pg.outside = outside
-    yield pg
-    assert outside == [], f"loaded from outside the host: {outside}"
-    context.close()
-
-
-def shot(pg, name):
-    ARTIFACTS.mkdir(parents=True, exist_ok=True)
-    pg.screenshot(path=str(ARTIFACTS / f"{name}.png"), full_page=True)
-
-
-def sign_in(pg, server, key):
-    pg.goto(server.url + "/ui/overview")
-    assert pg.url.endswith("/ui/signin")
-    pg.fill("#key", key)
-    pg.click("button[type=submit]")
+    with serve(seed) as server:
+        yield server, seed.keys
 
 
 def test_analyst_workflow(page, site):
@@ -94,8 +36,7 @@ def test_analyst_workflow(page, site):
     sign_in(pg, server, keys.field)                     # field keys are refused
     assert "Field keys can only post records" in pg.inner_text("#signin-error")
     shot(pg, "01-signin-refused")
-    sign_in(pg, server, keys.analyst)
-    pg.wait_for_url(re.compile(r"/ui/overview"))
+    open_as(pg, server, keys.analyst)
     assert "SA-300" in pg.inner_text("#facilities")
     assert "not a verdict" in pg.inner_text(".caution")
     shot(pg, "02-overview")
@@ -120,12 +61,7 @@ def test_analyst_workflow(page, site):
     shot(pg, "05-facility-after-void")
     pg.click("header nav a:text('Alerts')")
     pg.wait_for_url(re.compile(r"/ui/alerts"))
-    first = pg.locator("#alerts tbody tr").first
-    alert_id = first.get_attribute("data-alert")
-    first.locator("input[name=note]").fill("case opened with the agency")
-    first.locator("button:text('Acknowledge')").click()
-    pg.wait_for_selector(".flash.ok")
-    assert f"Alert {alert_id} acknowledged" in pg.inner_text(".flash.ok")
+    alert_id = acknowledge_first(pg, "case opened with the agency")
     assert pg.locator(f"#alerts tr[data-alert='{alert_id}']").count() == 0   # left the open list
     shot(pg, "06-alerts")
     pg.click("header nav a:text('Plan workbench')")
@@ -146,8 +82,7 @@ def test_analyst_workflow(page, site):
 def test_case_file_download_and_new_cycle(page, site):
     server, keys = site
     pg = page
-    sign_in(pg, server, keys.admin)
-    pg.goto(server.url + "/ui/facilities/SA-305")
+    open_as(pg, server, keys.admin, "/ui/facilities/SA-305")
     assert pg.inner_text("#cycle-status") == "Cleared"
     with pg.expect_download() as info:
         pg.click("#casefile")
@@ -162,8 +97,7 @@ def test_case_file_download_and_new_cycle(page, site):
 def test_forged_or_missing_csrf_is_refused(page, site):
     server, keys = site
     pg = page
-    sign_in(pg, server, keys.analyst)
-    pg.goto(server.url + "/ui/facilities/SA-306")
+    open_as(pg, server, keys.analyst, "/ui/facilities/SA-306")
     url = server.url + "/ui/facilities/SA-306/records/seed-6-3/void"
     for form in ({"reason": "x", "cycle": "1", "csrf": "forged"}, {"reason": "x", "cycle": "1"}):
         resp = pg.request.post(url, form=form, max_redirects=0)

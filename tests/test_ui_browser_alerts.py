@@ -5,29 +5,18 @@ import re
 
 import pytest
 
-from service.operations import Monitor, PlanBook
 from service.schemas import FacilityCreate
-from service.settings import load_settings
-from service.store import Store
 
-from .conftest import make_keys, record
-from .live_server import LiveServer, quiet_config
-from .test_ui_browser import CHROMIUM, browser, page, shot, sign_in  # noqa: F401
+from .browser import BROWSER, acknowledge_first, open_as, seeded, serve, shot
+from .conftest import record
 
-pytestmark = [pytest.mark.browser,
-              pytest.mark.skipif(CHROMIUM is None, reason="Debian's chromium is not installed "
-                                 "(.ci/run installs it)")]
+pytestmark = BROWSER
 
 
 @pytest.fixture(scope="module")
 def site(tmp_path_factory):
-    tmp = tmp_path_factory.mktemp("alerts-ui")
-    db = tmp / "ui.db"
-    store = Store(db)
-    store.migrate()
-    keys = make_keys(store)
-    m = Monitor(store=store, plans=PlanBook(load_settings(db_path=db).plans))
-    actor = ("seed", "admin")
+    seed = seeded(tmp_path_factory, "alerts-ui")
+    m, actor = seed.monitor, seed.actor
     batch = []
     for i in range(4):                       # four flagged (three nonconforming in a row)
         m.register_facility(FacilityCreate(facility_id=f"FL-{i}", name=f"Flagged {i}",
@@ -42,8 +31,8 @@ def site(tmp_path_factory):
     batch += [record("WA-0", f"wa-{k}", 0) for k in range(36)]
     batch += [record("WA-0", "wa-bad", 1, units=2)]          # chart 0 -> 22 -> 21
     m.post_records({"records": batch}, actor, with_state=False)
-    with LiveServer(db, config=quiet_config(tmp)) as server:
-        yield server, keys
+    with serve(seed) as server:
+        yield server, seed.keys
 
 
 def _rows(pg):
@@ -54,8 +43,7 @@ def _rows(pg):
 def test_review_queue_filters_kept_and_bulk_acknowledge(page, site):
     server, keys = site
     pg = page
-    sign_in(pg, server, keys.analyst)
-    pg.wait_for_url(re.compile(r"/ui/overview"))
+    open_as(pg, server, keys.analyst)
     assert pg.inner_text("#open-alerts") == "4"                  # only the flags to review
     pg.goto(server.url + "/ui/alerts")
     assert len(_rows(pg)) == 4
@@ -65,12 +53,7 @@ def test_review_queue_filters_kept_and_bulk_acknowledge(page, site):
 
     pg.select_option("select[name=kind]", "flagged")             # autosubmits
     pg.wait_for_url(re.compile(r"kind=flagged"))
-    first = pg.locator("#alerts tbody tr[data-alert]").first
-    first_id = first.get_attribute("data-alert")
-    first.locator("input[name=note]").fill("agency phoned")
-    first.locator("button:text('Acknowledge')").click()
-    pg.wait_for_selector(".flash.ok")
-    assert f"Alert {first_id} acknowledged" in pg.inner_text(".flash.ok")
+    first_id = acknowledge_first(pg, "agency phoned")
     # the filter survived the action (the message no longer overwrites `kind`)
     assert pg.eval_on_selector("select[name=kind]", "s => s.value") == "flagged"
     assert pg.eval_on_selector("select[name=review]", "s => s.value") == "needed"
@@ -104,9 +87,7 @@ def test_review_queue_filters_kept_and_bulk_acknowledge(page, site):
 def test_watched_facility_page_and_a_finding(page, site):
     server, keys = site
     pg = page
-    sign_in(pg, server, keys.analyst)
-    pg.wait_for_url(re.compile(r"/ui/overview"))
-    pg.goto(server.url + "/ui/facilities/WA-0")
+    open_as(pg, server, keys.analyst, "/ui/facilities/WA-0")
     assert "Watching (cleared)" in pg.inner_text("h1")
     assert "stands at 21 of the limit 62" in pg.inner_text("#watch-state")
     assert pg.locator("#watch svg.chart").count() == 1

@@ -1,17 +1,18 @@
 """Frames and draws on the facility page in a real browser (Playwright, Debian's Chromium,
 real uvicorn). Screenshots go to artifacts/browser/."""
-import re
 from pathlib import Path
 
+from .browser import BROWSER, open_as, shot
 from .test_api_draws import SEED, by_hand
-from .test_ui_browser import browser, page, pytestmark, shot, sign_in, site  # noqa: F401
+from .test_ui_browser import site  # noqa: F401
+
+pytestmark = BROWSER
 
 
 def test_register_a_frame_draw_and_download(page, site):  # noqa: F811
     server, keys = site
     pg = page
-    sign_in(pg, server, keys.analyst)
-    pg.wait_for_url(re.compile(r"/ui/overview"))
+    open_as(pg, server, keys.analyst)
     pg.goto(server.url + "/ui/facilities/SA-310")
     refs = [f"FD-310-{i:03d}" for i in range(1, 61)]
     pg.fill("#frame-label", "week 48")

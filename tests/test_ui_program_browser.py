@@ -2,19 +2,16 @@
 forecast, visits, a bad budget and the CSV download. Screenshots go to artifacts/browser/."""
 import re
 
-import pytest
+from .browser import BROWSER, open_as, shot
+from .test_ui_browser import site  # noqa: F401
 
-from .test_ui_browser import CHROMIUM, browser, page, shot, sign_in, site  # noqa: F401
-
-pytestmark = [pytest.mark.browser,
-              pytest.mark.skipif(CHROMIUM is None, reason="Debian's chromium is not installed")]
+pytestmark = BROWSER
 
 
 def test_forecast_and_visits_pages(page, site):  # noqa: F811
     server, keys = site
     pg = page
-    sign_in(pg, server, keys.analyst)
-    pg.wait_for_url(re.compile(r"/ui/overview"))
+    open_as(pg, server, keys.analyst)
     pg.click("header nav a:text('Register forecast')")
     pg.wait_for_url(re.compile(r"/ui/program"))
     open_cycles = int(pg.inner_text("#open-cycles"))

@@ -15,6 +15,13 @@ from .webhook_receiver import Receiver
 
 
 @pytest.fixture
+def receiver():
+    """A webhook receiver on 127.0.0.1, up for the test."""
+    with Receiver() as r:
+        yield r
+
+
+@pytest.fixture
 def env(settings):
     clock = FakeClock()
     app = create_app(settings, clock=clock)
@@ -58,34 +65,30 @@ def test_subscription_secret_shown_once(env):
     assert client.get("/v1/webhooks", headers=keys.header("analyst")).status_code == 403
 
 
-def test_signed_delivery_carries_alert_facility_cycle_and_plan(env):
+def test_signed_delivery_carries_alert_facility_cycle_and_plan(env, receiver):
     client, keys, clock, app, http = env
-    receiver = Receiver().start()
-    try:
-        hook = subscribe(client, keys, receiver.url)
-        receiver.secret = hook["secret"]
-        fid = new_facility(client, keys)
-        flag(client, keys, fid)
-        # the outbox row exists as soon as the alert does (same transaction)
-        pending = client.get(f"/v1/webhooks/{hook['id']}/deliveries",
-                             headers=keys.header("admin")).json()
-        assert pending["total"] == 1 and pending["items"][0]["status"] == "pending"
-        assert run_delivery(app, http, clock)["delivered"] == 1
-        got = receiver.received
-        assert len(got) == 1 and got[0]["valid"]
-        assert abs(int(got[0]["timestamp"]) - clock.epoch()) < 2
-        data = got[0]["json"]["data"]
-        assert got[0]["json"]["type"] == "alert.flagged"
-        assert data["alert"]["kind"] == "flagged" and data["facility"]["facility_id"] == fid
-        assert data["cycle"]["status"] == "flagged" and data["cycle"]["units"] == 3
-        assert data["plan"]["p1"] == 0.08 and "not a verdict" in data["caution"]
-        # a tampered body does not verify
-        from .webhook_receiver import verify
-        assert not verify(hook["secret"], got[0]["id"], got[0]["timestamp"],
-                          got[0]["body"] + b" ", "v1,AAAA")
-        assert run_delivery(app, http, clock)["delivered"] == 0  # nothing left to send
-    finally:
-        receiver.stop()
+    hook = subscribe(client, keys, receiver.url)
+    receiver.secret = hook["secret"]
+    fid = new_facility(client, keys)
+    flag(client, keys, fid)
+    # the outbox row exists as soon as the alert does (same transaction)
+    pending = client.get(f"/v1/webhooks/{hook['id']}/deliveries",
+                         headers=keys.header("admin")).json()
+    assert pending["total"] == 1 and pending["items"][0]["status"] == "pending"
+    assert run_delivery(app, http, clock)["delivered"] == 1
+    got = receiver.received
+    assert len(got) == 1 and got[0]["valid"]
+    assert abs(int(got[0]["timestamp"]) - clock.epoch()) < 2
+    data = got[0]["json"]["data"]
+    assert got[0]["json"]["type"] == "alert.flagged"
+    assert data["alert"]["kind"] == "flagged" and data["facility"]["facility_id"] == fid
+    assert data["cycle"]["status"] == "flagged" and data["cycle"]["units"] == 3
+    assert data["plan"]["p1"] == 0.08 and "not a verdict" in data["caution"]
+    # a tampered body does not verify
+    from .webhook_receiver import verify
+    assert not verify(hook["secret"], got[0]["id"], got[0]["timestamp"],
+                      got[0]["body"] + b" ", "v1,AAAA")
+    assert run_delivery(app, http, clock)["delivered"] == 0  # nothing left to send
 
 
 def test_receiver_down_then_up_every_alert_arrives_once(env):
@@ -111,8 +114,7 @@ def test_receiver_down_then_up_every_alert_arrives_once(env):
     assert run_delivery(app, http, clock)["retry"] == 0   # not due yet
     clock.advance(minutes=1)
     run_delivery(app, http, clock)        # still down: second failure
-    receiver = Receiver(secret=hook["secret"], port=port).start()
-    try:
+    with Receiver(secret=hook["secret"], port=port) as receiver:
         clock.advance(minutes=5)
         assert run_delivery(app, http, clock)["delivered"] == 3
         clock.advance(hours=2)
@@ -129,53 +131,43 @@ def test_receiver_down_then_up_every_alert_arrives_once(env):
         by_alert = {r["alert_id"]: r["msg_id"] for r in rows}
         assert sorted(g["id"] for g in got) == sorted(by_alert.values())
         assert len(set(by_alert.values())) == 3
-    finally:
-        receiver.stop()
 
 
-def test_three_500s_then_200_is_delivered_once_more_not_more(env):
+def test_three_500s_then_200_is_delivered_once_more_not_more(env, receiver):
     client, keys, clock, app, http = env
-    receiver = Receiver().start()
-    try:
-        hook = subscribe(client, keys, receiver.url)
-        receiver.secret = hook["secret"]
-        receiver.script = [500, 500, 500]
-        flag(client, keys, new_facility(client, keys))
-        for _ in range(8):
-            run_delivery(app, http, clock)
-            clock.advance(minutes=30)
-        answered = [g["answered"] for g in receiver.received]
-        assert answered == [500, 500, 500, 200]
-        assert len({g["id"] for g in receiver.received}) == 1
-        assert all(g["valid"] for g in receiver.received)
-        row = client.get(f"/v1/webhooks/{hook['id']}/deliveries",
-                         headers=keys.header("admin")).json()["items"][0]
-        assert row["status"] == "delivered" and row["attempts"] == 4
-        assert [a["status_code"] for a in row["attempt_log"]] == [500, 500, 500, 200]
-        assert all(a["duration_ms"] >= 0 for a in row["attempt_log"])
-    finally:
-        receiver.stop()
+    hook = subscribe(client, keys, receiver.url)
+    receiver.secret = hook["secret"]
+    receiver.script = [500, 500, 500]
+    flag(client, keys, new_facility(client, keys))
+    for _ in range(8):
+        run_delivery(app, http, clock)
+        clock.advance(minutes=30)
+    answered = [g["answered"] for g in receiver.received]
+    assert answered == [500, 500, 500, 200]
+    assert len({g["id"] for g in receiver.received}) == 1
+    assert all(g["valid"] for g in receiver.received)
+    row = client.get(f"/v1/webhooks/{hook['id']}/deliveries",
+                     headers=keys.header("admin")).json()["items"][0]
+    assert row["status"] == "delivered" and row["attempts"] == 4
+    assert [a["status_code"] for a in row["attempt_log"]] == [500, 500, 500, 200]
+    assert all(a["duration_ms"] >= 0 for a in row["attempt_log"])
 
 
-def test_410_disables_the_subscription(env):
+def test_410_disables_the_subscription(env, receiver):
     client, keys, clock, app, http = env
-    receiver = Receiver().start()
-    try:
-        subscribe(client, keys, receiver.url)
-        receiver.script = [410]
-        fid = new_facility(client, keys)
-        flag(client, keys, fid)
-        assert run_delivery(app, http, clock)["gone"] == 1
-        listed = client.get("/v1/webhooks", headers=keys.header("admin")).json()[0]
-        assert listed["active"] is False and "410" in listed["disabled_reason"]
-        client.post(f"/v1/records/{fid}-w0/void", json={"reason": "x"},
-                    headers=keys.header("analyst"))
-        clock.advance(hours=1)
-        assert run_delivery(app, http, clock) == {"delivered": 0, "retry": 0, "failed": 0,
-                                                  "gone": 0}
-        assert len(receiver.received) == 1
-    finally:
-        receiver.stop()
+    subscribe(client, keys, receiver.url)
+    receiver.script = [410]
+    fid = new_facility(client, keys)
+    flag(client, keys, fid)
+    assert run_delivery(app, http, clock)["gone"] == 1
+    listed = client.get("/v1/webhooks", headers=keys.header("admin")).json()[0]
+    assert listed["active"] is False and "410" in listed["disabled_reason"]
+    client.post(f"/v1/records/{fid}-w0/void", json={"reason": "x"},
+                headers=keys.header("analyst"))
+    clock.advance(hours=1)
+    assert run_delivery(app, http, clock) == {"delivered": 0, "retry": 0, "failed": 0,
+                                              "gone": 0}
+    assert len(receiver.received) == 1
 
 
 def test_gives_up_after_a_day_with_an_alert_then_manual_retry(env):
@@ -201,8 +193,7 @@ def test_gives_up_after_a_day_with_an_alert_then_manual_retry(env):
     failed = client.get("/v1/alerts", params={"kind": "delivery_failed"},
                         headers=keys.header("analyst")).json()["items"]
     assert len(failed) == 1 and failed[0]["detail"]["delivery_id"] == row["id"]
-    receiver = Receiver(secret=hook["secret"], port=port).start()
-    try:
+    with Receiver(secret=hook["secret"], port=port) as receiver:
         r = client.post(f"/v1/webhooks/{hook['id']}/deliveries/{row['id']}/retry",
                         headers=keys.header("admin"))
         assert r.status_code == 202 and r.json()["status"] == "pending"
@@ -211,25 +202,19 @@ def test_gives_up_after_a_day_with_an_alert_then_manual_retry(env):
         again = client.post(f"/v1/webhooks/{hook['id']}/deliveries/{row['id']}/retry",
                             headers=keys.header("admin"))
         assert again.status_code == 409
-    finally:
-        receiver.stop()
 
 
-def test_deleted_subscription_gets_nothing(env):
+def test_deleted_subscription_gets_nothing(env, receiver):
     client, keys, clock, app, http = env
-    receiver = Receiver().start()
-    try:
-        hook = subscribe(client, keys, receiver.url)
-        assert client.delete(f"/v1/webhooks/{hook['id']}",
-                             headers=keys.header("admin")).json()["active"] is False
-        flag(client, keys, new_facility(client, keys))
-        run_delivery(app, http, clock)
-        assert receiver.received == []
-        assert client.delete(f"/v1/webhooks/{hook['id']}",
-                             headers=keys.header("admin")).status_code == 409
-        assert client.delete("/v1/webhooks/999", headers=keys.header("admin")).status_code == 404
-    finally:
-        receiver.stop()
+    hook = subscribe(client, keys, receiver.url)
+    assert client.delete(f"/v1/webhooks/{hook['id']}",
+                         headers=keys.header("admin")).json()["active"] is False
+    flag(client, keys, new_facility(client, keys))
+    run_delivery(app, http, clock)
+    assert receiver.received == []
+    assert client.delete(f"/v1/webhooks/{hook['id']}",
+                         headers=keys.header("admin")).status_code == 409
+    assert client.delete("/v1/webhooks/999", headers=keys.header("admin")).status_code == 404
 
 
 def test_backoff_grows_exponentially_with_jitter_and_a_cap(settings):

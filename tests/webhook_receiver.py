@@ -77,6 +77,12 @@ class Receiver:
             self.server.server_close()
             self.server = None
 
+    def __enter__(self) -> "Receiver":
+        return self.start()
+
+    def __exit__(self, *exc) -> None:
+        self.stop()
+
 
 class TricklingReceiver:
     """A receiver that reads a request, then answers one byte every ``every_s`` seconds and

@@ -8,6 +8,8 @@ operation the role its key needs (see :func:`describe_security`).
 """
 from __future__ import annotations
 
+from collections.abc import Callable
+from dataclasses import dataclass
 from html import escape
 from importlib.resources import files
 from pathlib import Path
@@ -46,39 +48,39 @@ def _headers(csp: str) -> dict[str, str]:
             "X-Frame-Options": "DENY", "Referrer-Policy": "same-origin"}
 
 
-def swagger_page(title: str, openapi_url: str) -> str:
-    return f"""<!doctype html>
+@dataclass(frozen=True)
+class DocsPage:
+    """One documentation page: its title's end, the element the viewer fills, the viewer's
+    script (and stylesheet) from the package's files, and our own script that starts it."""
+
+    label: str
+    mount: str
+    bundle: str
+    init: str
+    stylesheet: str | None = None
+
+    def html(self, title: str, openapi_url: str) -> str:
+        style = (f'<link rel="stylesheet" href="{ASSETS_URL}/{self.stylesheet}">\n'
+                 if self.stylesheet else "")
+        return f"""<!doctype html>
 <html lang="en">
 <head>
 <meta charset="utf-8">
-<title>{escape(title)} - API documentation</title>
-<link rel="stylesheet" href="{ASSETS_URL}/swagger-ui.css">
-<link rel="icon" href="{ASSETS_URL}/favicon.png">
+<title>{escape(title)} - {self.label}</title>
+{style}<link rel="icon" href="{ASSETS_URL}/favicon.png">
 </head>
 <body>
-<div id="swagger-ui" data-openapi-url="{escape(openapi_url)}"></div>
-<script src="{ASSETS_URL}/swagger-ui-bundle.js"></script>
-<script src="{OWN_URL}/swagger-init.js"></script>
+<div id="{self.mount}" data-openapi-url="{escape(openapi_url)}"></div>
+<script src="{ASSETS_URL}/{self.bundle}"></script>
+<script src="{OWN_URL}/{self.init}"></script>
 </body>
 </html>
 """
 
 
-def redoc_page(title: str, openapi_url: str) -> str:
-    return f"""<!doctype html>
-<html lang="en">
-<head>
-<meta charset="utf-8">
-<title>{escape(title)} - API reference</title>
-<link rel="icon" href="{ASSETS_URL}/favicon.png">
-</head>
-<body>
-<div id="redoc" data-openapi-url="{escape(openapi_url)}"></div>
-<script src="{ASSETS_URL}/redoc.standalone.js"></script>
-<script src="{OWN_URL}/redoc-init.js"></script>
-</body>
-</html>
-"""
+SWAGGER = DocsPage("API documentation", "swagger-ui", "swagger-ui-bundle.js", "swagger-init.js",
+                   stylesheet="swagger-ui.css")
+REDOC = DocsPage("API reference", "redoc", "redoc.standalone.js", "redoc-init.js")
 
 
 def _route_role(route: APIRoute) -> str | None:
@@ -154,12 +156,16 @@ def install_docs(app: FastAPI, docs_url: str | None = "/docs",
     app.mount(OWN_URL, StaticFiles(directory=str(OWN)), name="docs-static")
     openapi_url = app.openapi_url or "/openapi.json"
 
-    if docs_url is not None:
-        @app.get(docs_url, include_in_schema=False)
-        async def swagger_ui() -> HTMLResponse:
-            return HTMLResponse(swagger_page(app.title, openapi_url), headers=_headers(docs_csp()))
+    for url, page, csp, name in ((docs_url, SWAGGER, docs_csp, "swagger_ui"),
+                                 (redoc_url, REDOC, lambda: REDOC_CSP, "redoc")):
+        if url is not None:
+            _serve_page(app, url, page, csp, name, openapi_url)
 
-    if redoc_url is not None:
-        @app.get(redoc_url, include_in_schema=False)
-        async def redoc() -> HTMLResponse:
-            return HTMLResponse(redoc_page(app.title, openapi_url), headers=_headers(REDOC_CSP))
+
+def _serve_page(app: FastAPI, url: str, page: DocsPage, csp: Callable[[], str], name: str,
+                openapi_url: str) -> None:
+    """GET ``url``: the page over the app's OpenAPI document, with its security headers."""
+
+    @app.get(url, include_in_schema=False, name=name)
+    async def docs_page() -> HTMLResponse:
+        return HTMLResponse(page.html(app.title, openapi_url), headers=_headers(csp()))
