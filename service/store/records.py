@@ -81,6 +81,16 @@ _UPDATE_COUNTS = (
     "last_record_at = ?, record_count = ? WHERE facility_id = ? AND cycle = ?")
 
 
+# The columns of a current cycle that ingest reads (and the watch chart after a clear).
+_CYCLE_COLUMNS = ("facility_id", "cycle", "plan_name", "plan_json", "status", "units",
+                  "nonconforming", "opened_at", "decided_seq", "decided_at",
+                  "decided_after_units", "at_cap", "closed_seq", "last_record_at",
+                  "record_count", "watch_state", "watch_value", "watch_units",
+                  "watch_nonconforming", "watch_peak", "watch_signal_seq", "watch_signal_at")
+_CURRENT_CYCLES = (f"SELECT {', '.join(_CYCLE_COLUMNS)} FROM cycles WHERE is_current = 1 AND "
+                   "facility_id IN ({marks})")
+
+
 def _state_row(cyc: dict, state: CycleState) -> tuple:
     """The parameters of _UPDATE_STATE for a cycle row (with its plan) and its new state."""
     plan = cyc["_plan"]
@@ -291,16 +301,15 @@ class RecordsMixin:
 
     @staticmethod
     def _current_cycles(conn, facility_ids: list[str]) -> dict[str, dict]:
-        """facility_id -> its current cycle row, with the plan and state decoded."""
+        """facility_id -> its current cycle row (the columns ingest uses), with the plan and
+        state decoded. Found through the maintained ``is_current`` flag: no join, and only
+        the columns needed (a row's every column would cost twice as much per facility)."""
         out = {}
-        for cur in where_in(conn, "SELECT c.* FROM facilities f JOIN cycles c ON "
-                                   "c.facility_id = f.facility_id AND c.cycle = "
-                                   "f.current_cycle WHERE f.facility_id IN ({marks})",
-                             facility_ids, cursors=True):
-            for row in rows_of(cur):
-                row["_plan"] = plan_of(row["plan_json"])
-                row["_state"] = state_of(row)
-                out[row["facility_id"]] = row
+        for values in where_in(conn, _CURRENT_CYCLES, facility_ids):
+            row = dict(zip(_CYCLE_COLUMNS, values))
+            row["_plan"] = plan_of(row["plan_json"])
+            row["_state"] = state_of(row)
+            out[row["facility_id"]] = row
         return out
 
     @staticmethod
