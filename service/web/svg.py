@@ -116,6 +116,23 @@ class _Frame:
                      f'{(self.top + self.h - self.bottom) / 2})">{escape(ylabel)}</text>')
         return "".join(parts)
 
+    def level(self, value: float, colour: str, text: str, cls: str | None = None) -> str:
+        """A dashed line across the plot at ``value`` (a boundary, a limit), labelled at its
+        right end."""
+        klass = f' class="{cls}"' if cls else ""
+        return (f'<line x1="{self.left}" y1="{_f(self.y(value))}" x2="{self.w - self.right}" '
+                f'y2="{_f(self.y(value))}" stroke="{colour}" stroke-width="2" '
+                f'stroke-dasharray="6 4"/><text x="{self.w - self.right - 4}" '
+                f'y="{_f(self.y(value) - 5)}" font-size="11" text-anchor="end" '
+                f'fill="{colour}"{klass}>{escape(text)}</text>')
+
+    def marker(self, x: float, y: float, fill: str, text: str) -> str:
+        """A dot at (x, y) where the chart stopped or signalled, ``text`` above its left."""
+        return (f'<circle cx="{_f(self.x(x))}" cy="{_f(self.y(y))}" r="7" '
+                f'fill="{fill}" stroke="{INK}" stroke-width="1.5"/>'
+                f'<text x="{_f(self.x(x) - 10)}" y="{_f(self.y(y) - 10)}" font-size="12" '
+                f'text-anchor="end" fill="{INK}">{escape(text)}</text>')
+
     def svg(self, body: str, label: str) -> Markup:
         return Markup(f'<svg class="chart" viewBox="0 0 {self.w} {self.h}" role="img" '
                       f'aria-label="{escape(label)}"><title>{escape(label)}</title>{body}</svg>')
@@ -131,11 +148,7 @@ def path_chart(points: list[tuple[int, float]], lower: float, upper: float,
                     "log-likelihood ratio", xwhole=True)]
     for value, colour, name in ((upper, COLOURS["flagged"], "flag boundary"),
                                 (lower, COLOURS["cleared"], "clear boundary")):
-        body.append(f'<line x1="{fr.left}" y1="{_f(fr.y(value))}" x2="{fr.w - fr.right}" '
-                    f'y2="{_f(fr.y(value))}" stroke="{colour}" stroke-width="2" '
-                    f'stroke-dasharray="6 4"/><text x="{fr.w - fr.right - 4}" '
-                    f'y="{_f(fr.y(value) - 5)}" font-size="11" text-anchor="end" '
-                    f'fill="{colour}" class="boundary-label">{name} ({value:.3f})</text>')
+        body.append(fr.level(value, colour, f"{name} ({value:.3f})", cls="boundary-label"))
     if cap:
         mid = (fr.y(upper) + fr.y(lower)) / 2
         body.append(f'<line x1="{_f(fr.x(cap))}" y1="{fr.top}" x2="{_f(fr.x(cap))}" '
@@ -159,10 +172,8 @@ def path_chart(points: list[tuple[int, float]], lower: float, upper: float,
                     f'{_f(Y + 4)} L{_f(X + 4)},{_f(Y - 4)}" stroke="{INK}" stroke-width="1.5"/>')
     if decided:
         units, llr, status = decided
-        body.append(f'<circle cx="{_f(fr.x(units))}" cy="{_f(fr.y(llr))}" r="7" '
-                    f'fill="{COLOURS.get(status, INK)}" stroke="{INK}" stroke-width="1.5"/>'
-                    f'<text x="{_f(fr.x(units) - 10)}" y="{_f(fr.y(llr) - 10)}" font-size="12" '
-                    f'text-anchor="end" fill="{INK}">{escape(status)} after {units} units</text>')
+        body.append(fr.marker(units, llr, COLOURS.get(status, INK),
+                              f"{status} after {units} units"))
     label = (f"Path of the LLR over {points[-1][0] if points else 0} units; boundaries "
              f"{lower:.3f} and {upper:.3f}" + (f"; {decided[2]} after {decided[0]} units"
                                               if decided else ""))
