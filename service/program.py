@@ -222,21 +222,42 @@ class VisitScores:
 
 
 def visit_scores(x: VisitInputs, per_visit: int = PER_VISIT) -> VisitScores:
-    """The documented visit score (module docstring), vectorised over cycles."""
+    """The documented visit score (module docstring), vectorised over cycles.
+
+    Each term is the expression of the table above; temporaries are reused in place
+    (the figures are the same as computing every term on its own).
+    """
     llr = x.d * (x.g1 + x.g2) - x.n * x.g2
-    position = np.clip((llr - x.lower) / (x.upper - x.lower), 0.0, 1.0)
-    to_clear = np.maximum(np.ceil((llr - x.lower) / x.g2 - 1e-9), 1).astype(np.int64)
-    to_flag = np.maximum(np.ceil((x.upper - llr) / x.g1 - 1e-9), 1).astype(np.int64)
+    from_clear = llr - x.lower                                  # LLR - b
+    position = from_clear / (x.upper - x.lower)
+    np.minimum(np.maximum(position, 0.0, out=position), 1.0, out=position)
+    to_clear = _at_least_one(from_clear / x.g2)
+    to_flag = _at_least_one((x.upper - llr) / x.g1)
     never = np.where(x.n == 0, NEVER_POINTS, 0.0)
-    lean = LEAN_POINTS * np.maximum(0.0, 2.0 * position - 1.0)
+    lean = np.multiply(position, 2.0)
+    lean -= 1.0
+    np.maximum(lean, 0.0, out=lean)
+    lean *= LEAN_POINTS
     near = np.where((to_clear <= per_visit) | (to_flag <= 2), NEAR_POINTS, 0.0)
-    stale = np.minimum(x.age_days / x.stale_days, STALE_CAP)
+    stale = np.divide(x.age_days, x.stale_days)
+    np.minimum(stale, STALE_CAP, out=stale)
     watch = np.where(x.watch_high, WATCH_POINTS, 0.0)
-    score = never + lean + near + stale + watch
-    units = np.clip(to_clear, 1, per_visit)
+    score = never + lean
+    score += near
+    score += stale
+    score += watch
+    units = np.minimum(to_clear, per_visit)                     # to_clear is at least 1
     return VisitScores(score=score, units=units, position=position, to_clear=to_clear,
                        to_flag=to_flag, parts={"never": never, "lean": lean, "near": near,
                                                "stale": stale, "watch": watch})
+
+
+def _at_least_one(units: np.ndarray) -> np.ndarray:
+    """max(ceil(units - 1e-9), 1) as int64 (``units`` is overwritten)."""
+    units -= 1e-9
+    np.ceil(units, out=units)
+    np.maximum(units, 1.0, out=units)
+    return units.astype(np.int64)
 
 
 def rank(score: np.ndarray) -> np.ndarray:
@@ -268,6 +289,43 @@ def allocate(units: np.ndarray, score: np.ndarray, budget: int,
     out = np.zeros(size, dtype=np.int64)
     out[order] = give
     return out
+
+
+def serve(units: np.ndarray, score: np.ndarray, budget: int) -> tuple[np.ndarray, np.ndarray]:
+    """The cycles served, in visit order, and the units each gets: :func:`allocate` then
+    :func:`rank` of the served ones, for a single budget and finite scores.
+
+    Every cycle served takes at least one unit, so at most ``budget`` are served: only the
+    cycles scoring at least the ``budget``-th highest score are sorted (score descending,
+    ties in row order), which gives the same first ``budget`` places as sorting them all.
+
+    Parameters
+    ----------
+    units : numpy.ndarray of int
+        Units wanted by each cycle, each at least 1.
+    score : numpy.ndarray of float
+        Visit score of each cycle (finite).
+    budget : int
+        Audits available (at least 1).
+
+    Returns
+    -------
+    (numpy.ndarray, numpy.ndarray)
+        Row indices in visit order, and the units given to each (all positive).
+    """
+    size = score.size
+    if budget < size:
+        # the budget-th highest score (np.sort, not np.partition: the scores have many
+        # ties, on which numpy's selection is several times slower than its sort)
+        cut = np.sort(score)[size - budget]
+        rows = np.flatnonzero(score >= cut)
+        order = rows[np.argsort(-score[rows], kind="stable")]
+    else:
+        order = np.argsort(-score, kind="stable")
+    want = units[order]
+    before = np.cumsum(want) - want
+    served = np.count_nonzero(before < budget)     # a prefix: units are at least 1
+    return order[:served], np.minimum(want[:served], budget - before[:served])
 
 
 def reason(parts: dict, i: int, position: float, to_clear: int, to_flag: int, age_days: float,
