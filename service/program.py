@@ -92,7 +92,9 @@ def forecast_columns(facility_ids: list[str], cycle_nos: list[int], plan_keys: l
     size = len(facility_ids)
     n = np.asarray(n, dtype=np.int64).reshape(-1)
     d = np.asarray(d, dtype=np.int64).reshape(-1)
-    keys = list(plans)
+    # plans in the order the cycles first name them (not the mapping's order, which may
+    # come from a set): the weeks' random stream is then the same in every process
+    keys = [k for k in dict.fromkeys(plan_keys) if k in plans]
     code = {k: i for i, k in enumerate(keys)}
     group = np.fromiter((code[k] for k in plan_keys), dtype=np.int64, count=size)
     cols = {name: np.zeros(size) for name in ("p_flag_p0", "p_clear_p0", "p_flag_p1",
@@ -149,19 +151,35 @@ def weeks_to_decide(laws, size: int, expected, budget: int, runs: int = RUNS,
     out = {"budget": budget, "runs": runs, "seed": seed,
            "model": "each open cycle audited until it decides, fewest expected further "
                     "audits first; further audits drawn from the exact stop distribution"}
+    ks = sorted({max(1, math.ceil(s * size)) for s in shares})
     for r in (0, 1):
-        draws = np.empty((runs, size), dtype=np.int64)
+        # place of each cycle in the queue (fewest expected further audits first)
+        place = np.empty(size, dtype=np.int64)
+        place[np.argsort(expected[r], kind="stable")] = np.arange(size)
+        # S_k for the k asked, per run: the draws of the cycles placed before k, summed
+        # (whole numbers: the same in any order)
+        sums = {k: np.zeros(runs, dtype=np.int64) for k in ks}
         for idx_a, fig in laws:
-            # one uniform per (run, cycle), mapped through the cycle's exact law
+            # one uniform per (run, cycle), drawn run by run, mapped through the cycle's
+            # exact law; the draws are made cycle by cycle, cycles of one distinct state
+            # side by side (the same pairs of uniform and state: the searches of the
+            # inverse transform then stay within one row of the law's tables)
             m = idx_a.size
-            states = np.tile(np.arange(m), runs)
-            draws[:, idx_a] = fig.draw_many(r, states, rng.random(runs * m)).reshape(runs, m)
-        order = np.argsort(expected[r], kind="stable")
-        total = np.cumsum(draws[:, order], axis=1)
+            u = rng.random(runs * m).reshape(runs, m)
+            by = np.argsort(fig.index, kind="stable")
+            got = fig.draw_many(r, np.repeat(by, runs), u[:, by].T.reshape(-1)).reshape(m, runs)
+            before = place[idx_a[by]]
+            every = None
+            for k in ks:
+                first = before < k
+                if 2 * np.count_nonzero(first) <= m:
+                    sums[k] += got[first].sum(axis=0)
+                else:                       # most rows: the whole sum less the others
+                    every = got.sum(axis=0) if every is None else every
+                    sums[k] += every - got[~first].sum(axis=0)
         row = {}
         for s in shares:
-            k = max(1, math.ceil(s * size))
-            weeks = np.ceil(total[:, k - 1] / budget)
+            weeks = np.ceil(sums[max(1, math.ceil(s * size))] / budget)
             row[f"weeks_{round(s * 100)}"] = float(weeks.mean())
             row[f"weeks_{round(s * 100)}_se"] = float(weeks.std(ddof=1) / math.sqrt(runs)) \
                 if runs > 1 else None
