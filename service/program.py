@@ -314,8 +314,12 @@ def serve(units: np.ndarray, score: np.ndarray, budget: int) -> tuple[np.ndarray
     :func:`rank` of the served ones, for a single budget and finite scores.
 
     Every cycle served takes at least one unit, so at most ``budget`` are served: only the
-    cycles scoring at least the ``budget``-th highest score are sorted (score descending,
-    ties in row order), which gives the same first ``budget`` places as sorting them all.
+    cycles scoring at least a bound ``cut`` no higher than the ``budget``-th highest score
+    are sorted (score descending, ties in row order), which gives the same first
+    ``budget`` places as sorting them all. The bound is found among the scores rounded
+    to float32 (half the data to sort): rounding to nearest keeps the order, so the
+    ``budget``-th highest rounded score is the rounded ``budget``-th highest, and the
+    float32 just below it is no higher than the score itself.
 
     Parameters
     ----------
@@ -333,9 +337,10 @@ def serve(units: np.ndarray, score: np.ndarray, budget: int) -> tuple[np.ndarray
     """
     size = score.size
     if budget < size:
-        # the budget-th highest score (np.sort, not np.partition: the scores have many
-        # ties, on which numpy's selection is several times slower than its sort)
-        cut = np.sort(score)[size - budget]
+        # np.sort, not np.partition: the scores have many ties, on which numpy's selection
+        # is several times slower than its sort
+        high = np.sort(score.astype(np.float32))[size - budget]
+        cut = float(np.nextafter(high, np.float32(-np.inf)))
         rows = np.flatnonzero(score >= cut)
         order = rows[np.argsort(-score[rows], kind="stable")]
     else:

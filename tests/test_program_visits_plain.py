@@ -168,11 +168,13 @@ def allocate_then_rank(units, score, budget):
 
 
 @settings(max_examples=300, deadline=None)
-@given(st.lists(st.tuples(st.sampled_from([0.0, 0.5, 1.25, 2.0, 3.5, 4.75]),
+@given(st.lists(st.tuples(st.sampled_from([0.0, 0.5, 1.25, 1.25 + 1e-12, 2.0 - 1e-13, 2.0,
+                                           3.5, 4.75, 1e-30, -1e-30]),
                           st.integers(1, 20)), max_size=120),
        st.integers(1, 400))
 def test_serve_equals_allocate_and_rank(rows, budget):
-    # scores from a few values (many ties) and wanted units 1-20
+    # scores from a few values (many ties; some apart by less than float32 can tell, which
+    # serve's float32 bound must not lose) and wanted units 1-20
     score = np.array([r[0] for r in rows], dtype=float)
     units = np.array([r[1] for r in rows], dtype=np.int64)
     chosen, give = program.serve(units, score, budget)
@@ -216,3 +218,10 @@ def test_visit_scores_equal_the_formula_row_by_row():
                  + min(x.age_days[i] / x.stale_days[i], 2.0) + (2.0 if x.watch_high[i] else 0.0))
         assert (s.score[i], s.position[i], s.to_clear[i], s.to_flag[i], s.units[i]) == \
             (score, pos, to_clear, to_flag, min(to_clear, 20))
+
+
+def test_serve_keeps_scores_just_below_a_float32_value():
+    # 2 - 1e-13 rounds up to 2.0 in float32: the bound must still let those cycles in
+    score = np.array([0.0, 2.0 - 1e-13, 0.5, 2.0 - 1e-13, 2.0 - 1e-13, 0.0])
+    chosen, give = program.serve(np.ones(6, dtype=np.int64), score, 2)
+    assert chosen.tolist() == [1, 3] and give.tolist() == [1, 1]
