@@ -170,11 +170,10 @@ def allocate_then_rank(units, score, budget):
 @settings(max_examples=300, deadline=None)
 @given(st.lists(st.tuples(st.sampled_from([0.0, 0.5, 1.25, 1.25 + 1e-12, 2.0 - 1e-13, 2.0,
                                            3.5, 4.75, 1e-30, -1e-30]),
-                          st.integers(1, 20)), max_size=120),
+                          st.integers(1, 20)), max_size=300),
        st.integers(1, 400))
 def test_serve_equals_allocate_and_rank(rows, budget):
-    # scores from a few values (many ties; some apart by less than float32 can tell, which
-    # serve's float32 bound must not lose) and wanted units 1-20
+    # scores from a few values (many ties, some very close) and wanted units 1-20
     score = np.array([r[0] for r in rows], dtype=float)
     units = np.array([r[1] for r in rows], dtype=np.int64)
     chosen, give = program.serve(units, score, budget)
@@ -220,8 +219,24 @@ def test_visit_scores_equal_the_formula_row_by_row():
             (score, pos, to_clear, to_flag, min(to_clear, 20))
 
 
-def test_serve_keeps_scores_just_below_a_float32_value():
-    # 2 - 1e-13 rounds up to 2.0 in float32: the bound must still let those cycles in
-    score = np.array([0.0, 2.0 - 1e-13, 0.5, 2.0 - 1e-13, 2.0 - 1e-13, 0.0])
-    chosen, give = program.serve(np.ones(6, dtype=np.int64), score, 2)
-    assert chosen.tolist() == [1, 3] and give.tolist() == [1, 1]
+@pytest.mark.parametrize("arrangement", ["shuffled", "ascending", "descending", "off_sample"])
+def test_serve_on_large_registers_equals_allocate_and_rank(arrangement):
+    # seeded scores with many ties, in orders that make the sampled bound close, too low
+    # (many more rows than needed) or too high (too few rows: the fallback is used)
+    rng = np.random.default_rng(44)
+    size = 20_000
+    score = np.round(rng.random(size) * 8, 1) + np.where(rng.random(size) < 0.3, 2.5, 0.0)
+    if arrangement == "ascending":
+        score.sort()
+    elif arrangement == "descending":
+        score = -np.sort(-score)
+    elif arrangement == "off_sample":
+        # only the rows a budget of 400 samples (every 12th) score above 0: the sample's
+        # bound is reached by too few rows, and the budget-th highest score is taken
+        score = np.zeros(size)
+        score[::12] = rng.random(score[::12].size) + 1.0
+    units = rng.integers(1, 21, size)
+    for budget in (1, 7, 25, 400, 2_499, 5_000, 19_999, 20_000, 50_000):
+        chosen, give = program.serve(units, score, budget)
+        ref_chosen, ref_give = allocate_then_rank(units, score, budget)
+        assert chosen.tolist() == ref_chosen.tolist() and give.tolist() == ref_give.tolist()
