@@ -2,8 +2,8 @@
 
 The store writes every instant as UTC text of one width, ``YYYY-MM-DDTHH:MM:SS.ffffffZ``
 (27 characters, :func:`service.clock.format_time`). A column of them is joined into one
-ASCII buffer, checked character by character against that form and read as digits in one
-matrix product; each (year, month) then finds its first day in a table built once by the
+ASCII buffer, checked character by character against that form and read as two-digit
+groups; each (year, month) then finds its first day in a table built once by the
 civil-calendar formula (:func:`days_from_civil`). No Python work is done per text. Any
 text not in that form (another width, an offset other than ``Z``, a date that is not on
 the calendar) sends the whole column through :func:`service.clock.parse_rfc3339` one text
@@ -26,15 +26,10 @@ _LOW = np.frombuffer(_FORM.encode("ascii"), np.uint8)
 # month, day, hour, minute and second are limited further (1, 3, 2, 5, 5)
 _SPAN = np.array([9 if ch == "0" else 0 for ch in _FORM], np.uint8)
 _SPAN[[5, 8, 11, 14, 17]] = (1, 3, 2, 5, 5)
-# (year x 32 + month, day, second of the day, microsecond) from the digits in one
-# product. Every partial sum is an integer below 9 x 111111 < 2**24, which float32
-# holds exactly in any order of summation.
-_MONTHS = 32
-_WEIGHTS = np.zeros((_ROW, 4), np.float32)
-_WEIGHTS[[0, 1, 2, 3, 5, 6], 0] = (1000 * _MONTHS, 100 * _MONTHS, 10 * _MONTHS, _MONTHS, 10, 1)
-_WEIGHTS[8:10, 1] = (10, 1)
-_WEIGHTS[[11, 12, 14, 15, 17, 18], 2] = (36000, 3600, 600, 60, 10, 1)
-_WEIGHTS[20:26, 3] = (100000, 10000, 1000, 100, 10, 1)
+# the ten two-digit groups of the form: YY YY - MM - DD T hh : mm : ss . ff ff ff
+_TENS = [0, 2, 5, 8, 11, 14, 17, 20, 22, 24]
+_UNITS = [k + 1 for k in _TENS]
+_MONTHS = 32            # year x 32 + month indexes the month tables
 _EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
 _US = timedelta(microseconds=1)
 
@@ -129,8 +124,14 @@ def utc_micros(texts) -> np.ndarray:
     # elsewhere, every text is exactly WIDTH characters of the stored form
     if not (value <= span).all():
         return _one_by_one(texts)
-    ym, day, second, micro = (value.reshape(size, _ROW).astype(np.float32) @ _WEIGHTS
-                              ).astype(np.int64).T
+    # the two-digit groups (each 0-99: uint8), then the fields, one row each; no BLAS
+    # call (a matrix product here would wake its threads, costlier than the product)
+    rows = value.reshape(size, _ROW)
+    group = (rows[:, _TENS] * np.uint8(10) + rows[:, _UNITS]).T.astype(np.int64)
+    ym = group[0] * (100 * _MONTHS) + group[1] * _MONTHS + group[2]
+    day = group[3]
+    second = group[4] * 3600 + group[5] * 60 + group[6]
+    micro = group[7] * 10_000 + group[8] * 100 + group[9]
     if _TABLES is None:
         _TABLES = _month_tables()
     first, length = _TABLES
