@@ -78,6 +78,7 @@ def _month_tables() -> tuple[np.ndarray, np.ndarray]:
 
 _TABLES: tuple | None = None
 _TILED: tuple = (0, _LOW, _SPAN)
+_KEEP_ROWS = 200_000            # at most 2 x 28 x 200,000 bytes kept
 
 
 def micros(text: str) -> int:
@@ -144,11 +145,13 @@ def utc_micros(texts) -> np.ndarray:
 
 def _templates(size: int) -> tuple[np.ndarray, np.ndarray]:
     """The form's lowest characters and spans repeated for ``size`` texts (kept for the
-    largest column seen, so that a call only slices them: memory linear in the column)."""
+    largest column seen up to _KEEP_ROWS texts, so that a call only slices them)."""
     global _TILED
     rows, low, span = _TILED
+    if size > _KEEP_ROWS:
+        return np.tile(_LOW, size), np.tile(_SPAN, size)
     if rows < size:
-        rows = max(size, 2 * rows)
+        rows = min(max(size, 2 * rows), _KEEP_ROWS)
         low, span = np.tile(_LOW, rows), np.tile(_SPAN, rows)
         _TILED = (rows, low, span)
     return low[:_ROW * size], span[:_ROW * size]

@@ -145,3 +145,13 @@ def test_empty_column_and_one_time():
     assert micros("1970-01-01T00:00:01.000001Z") == 1_000_001
     with pytest.raises(ValueError):
         micros(None)
+
+
+def test_a_column_longer_than_the_kept_templates(monkeypatch):
+    # beyond _KEEP_ROWS texts the repeated form is built for the call (nothing kept)
+    monkeypatch.setattr(time_columns, "_KEEP_ROWS", 3)
+    moments = [datetime(2026, 11, d, 9, tzinfo=timezone.utc) for d in range(1, 8)]
+    before = time_columns._TILED
+    assert utc_micros([stored(m) for m in moments]).tolist() == [by_datetime(m)
+                                                                 for m in moments]
+    assert time_columns._TILED is before
