@@ -12,6 +12,17 @@ from pathlib import Path
 
 import httpx2
 
+# A plan that cannot decide within a test's few hundred balanced units (risks 1e-6, outcomes
+# half and half), so every distinct record stays evidence and the cycle's count must equal
+# the records stored.
+BALANCED_CONFIG = """
+[plans.balanced]
+p0 = 0.45
+p1 = 0.55
+alpha = 0.000001
+beta = 0.000001
+"""
+
 
 def free_port() -> int:
     with socket.socket() as s:

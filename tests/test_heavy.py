@@ -25,6 +25,17 @@ def pid_after(seconds: float) -> int:
     return os.getpid()
 
 
+def in_pool(settings: HeavySettings, body) -> None:
+    """Run ``await body(pool)`` on a new pool, closed afterwards whatever happens."""
+    async def main():
+        pool = HeavyPool(settings)
+        try:
+            await body(pool)
+        finally:
+            pool.close()
+    asyncio.run(main())
+
+
 def fail_with(kind: str):
     if kind == "notfound":
         raise NotFound("no facility 'X'", facility_id="X")
@@ -32,79 +43,63 @@ def fail_with(kind: str):
 
 
 def test_jobs_run_in_another_process_and_errors_cross_intact():
-    async def main():
-        pool = HeavyPool(HeavySettings(workers=1, queue=0, timeout_s=60))
-        try:
-            child = await pool.run(pid_after, 0)
-            assert child != os.getpid()
-            with pytest.raises(NotFound) as nf:
-                await pool.run(fail_with, "notfound")
-            assert nf.value.extra == {"facility_id": "X"} and nf.value.status == 404
-            with pytest.raises(PlanInputError) as pe:
-                await pool.run(fail_with, "plan")
-            assert pe.value.argument == "p1"
-            assert await pool.run(pid_after, 0) == child     # the same worker, kept alive
-            pool.close()                 # the app's lifespan ended; a new one may begin
-            assert await pool.run(pid_after, 0) not in (child, os.getpid())
-        finally:
-            pool.close()
-    asyncio.run(main())
+    async def body(pool):
+        child = await pool.run(pid_after, 0)
+        assert child != os.getpid()
+        with pytest.raises(NotFound) as nf:
+            await pool.run(fail_with, "notfound")
+        assert nf.value.extra == {"facility_id": "X"} and nf.value.status == 404
+        with pytest.raises(PlanInputError) as pe:
+            await pool.run(fail_with, "plan")
+        assert pe.value.argument == "p1"
+        assert await pool.run(pid_after, 0) == child     # the same worker, kept alive
+        pool.close()                 # the app's lifespan ended; a new one may begin
+        assert await pool.run(pid_after, 0) not in (child, os.getpid())
+    in_pool(HeavySettings(workers=1, queue=0, timeout_s=60), body)
 
 
 def test_timeout_stops_the_job_and_a_new_worker_takes_over():
-    async def main():
-        pool = HeavyPool(HeavySettings(workers=1, queue=0, timeout_s=60))
-        try:
-            first = await pool.run(pid_after, 0)
-            start = time.monotonic()
-            with pytest.raises(TimedOut) as exc:
-                await pool.run(pid_after, 30, timeout_s=0.5)
-            # the 30 s job was stopped, not waited for (margin: 25 s on a loaded machine)
-            assert time.monotonic() - start < 25
-            assert exc.value.status == 503 and exc.value.headers["Retry-After"] == "1"
-            assert pool.stats["timed_out"] == 1
-            second = await pool.run(pid_after, 0)
-            assert second != first                       # the stopped worker was replaced
-            with pytest.raises(ProcessLookupError):
-                os.kill(first, 0)
-        finally:
-            pool.close()
-    asyncio.run(main())
+    async def body(pool):
+        first = await pool.run(pid_after, 0)
+        start = time.monotonic()
+        with pytest.raises(TimedOut) as exc:
+            await pool.run(pid_after, 30, timeout_s=0.5)
+        # the 30 s job was stopped, not waited for (margin: 25 s on a loaded machine)
+        assert time.monotonic() - start < 25
+        assert exc.value.status == 503 and exc.value.headers["Retry-After"] == "1"
+        assert pool.stats["timed_out"] == 1
+        second = await pool.run(pid_after, 0)
+        assert second != first                       # the stopped worker was replaced
+        with pytest.raises(ProcessLookupError):
+            os.kill(first, 0)
+    in_pool(HeavySettings(workers=1, queue=0, timeout_s=60), body)
 
 
 def test_full_pool_refuses_at_once_and_same_key_shares_one_run():
-    async def main():
-        pool = HeavyPool(HeavySettings(workers=1, queue=1, timeout_s=60))
-        try:
-            running = asyncio.ensure_future(pool.run(pid_after, 1.0, key="a"))
-            waiting = asyncio.ensure_future(pool.run(pid_after, 0, key="b"))
-            shared = asyncio.ensure_future(pool.run(pid_after, 1.0, key="a"))
-            await asyncio.sleep(0.05)
-            with pytest.raises(Busy) as exc:       # 1 running + 1 waiting = capacity
-                await pool.run(pid_after, 0)
-            assert exc.value.status == 503 and int(exc.value.headers["Retry-After"]) >= 1
-            a, b, a2 = await asyncio.gather(running, waiting, shared)
-            assert a == a2 == b and pool.stats["runs"] == 2 and pool.stats["shared"] == 1
-            assert await pool.run(pid_after, 5.0, key="a") == a   # from the cache, no 5 s
-            assert pool.stats["cache_hits"] == 1 and pool.stats["runs"] == 2
-        finally:
-            pool.close()
-    asyncio.run(main())
+    async def body(pool):
+        running = asyncio.ensure_future(pool.run(pid_after, 1.0, key="a"))
+        waiting = asyncio.ensure_future(pool.run(pid_after, 0, key="b"))
+        shared = asyncio.ensure_future(pool.run(pid_after, 1.0, key="a"))
+        await asyncio.sleep(0.05)
+        with pytest.raises(Busy) as exc:       # 1 running + 1 waiting = capacity
+            await pool.run(pid_after, 0)
+        assert exc.value.status == 503 and int(exc.value.headers["Retry-After"]) >= 1
+        a, b, a2 = await asyncio.gather(running, waiting, shared)
+        assert a == a2 == b and pool.stats["runs"] == 2 and pool.stats["shared"] == 1
+        assert await pool.run(pid_after, 5.0, key="a") == a   # from the cache, no 5 s
+        assert pool.stats["cache_hits"] == 1 and pool.stats["runs"] == 2
+    in_pool(HeavySettings(workers=1, queue=1, timeout_s=60), body)
 
 
 def test_cache_bounded_by_entries():
-    async def main():
-        pool = HeavyPool(HeavySettings(workers=1, queue=0, cache_entries=2))
-        try:
-            for k in ("a", "b", "c"):
-                await pool.run(pid_after, 0, key=k)
-            await pool.run(pid_after, 0, key="a")          # evicted (oldest): runs again
-            assert pool.stats["runs"] == 4 and pool.stats["cache_hits"] == 0
-            await pool.run(pid_after, 0, key="c")
-            assert pool.stats["cache_hits"] == 1
-        finally:
-            pool.close()
-    asyncio.run(main())
+    async def body(pool):
+        for k in ("a", "b", "c"):
+            await pool.run(pid_after, 0, key=k)
+        await pool.run(pid_after, 0, key="a")          # evicted (oldest): runs again
+        assert pool.stats["runs"] == 4 and pool.stats["cache_hits"] == 0
+        await pool.run(pid_after, 0, key="c")
+        assert pool.stats["cache_hits"] == 1
+    in_pool(HeavySettings(workers=1, queue=0, cache_entries=2), body)
 
 
 @pytest.fixture

@@ -8,24 +8,13 @@ from service.monitor import Evidence, replay
 from service.store import Store, plan_from_snapshot
 
 from .conftest import make_keys, record
-from .live_server import LiveServer
-
-
-# A plan that cannot decide within this test's 520 balanced units (risks 1e-6), so every
-# distinct record must be counted as evidence.
-CONFIG = """
-[plans.balanced]
-p0 = 0.45
-p1 = 0.55
-alpha = 0.000001
-beta = 0.000001
-"""
+from .live_server import BALANCED_CONFIG, LiveServer
 
 
 def test_two_workers_count_each_distinct_record_once(tmp_path):
     db = tmp_path / "live.db"
     config = tmp_path / "live.toml"
-    config.write_text(CONFIG)
+    config.write_text(BALANCED_CONFIG)
     store = Store(db)
     store.migrate()
     keys = make_keys(store)

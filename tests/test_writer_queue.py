@@ -11,15 +11,8 @@ from service.store import Store
 from service.store.writer_lock import WriterLock
 from service.verify import verify_database
 
-# A plan that cannot decide within these few hundred balanced units (risks 1e-6), so every
-# distinct record stays evidence and the cycle's count must equal the stored records.
-CONFIG = """
-[plans.balanced]
-p0 = 0.45
-p1 = 0.55
-alpha = 0.000001
-beta = 0.000001
-"""
+from .live_server import BALANCED_CONFIG
+
 BATCHES, PER_BATCH, SHARED = 30, 10, 5
 
 
@@ -50,7 +43,7 @@ def ingest_from_process(db: str, config: str, name: str, start, out) -> None:
 
 def test_two_processes_ingesting_at_once_lose_and_double_nothing(tmp_path):
     db, config = tmp_path / "wq.db", tmp_path / "wq.toml"
-    config.write_text(CONFIG)
+    config.write_text(BALANCED_CONFIG)
     m = monitor_on(str(db), str(config))
     m.store.migrate()
     m.register_facility(FacilityCreate(facility_id="WQ-1", name="queue", plan="balanced"),
