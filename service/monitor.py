@@ -99,13 +99,18 @@ def apply_run(plan: SprtPlan, state: CycleState, seqs: list[int], units: list[in
     them nonconforming, in the run). When both lie strictly inside the boundaries and the cap
     is not reached, no record decides.
     """
-    if not state.is_open:
+    if state.status != MONITORING:
         return state, None, 0
     n, d = state.units, state.nonconforming
-    more_units, more_bad = sum(units), sum(bad)
-    if (plan.llr(n, d + more_bad) < plan.upper_llr - BOUNDARY_TOL
-            and plan.llr(n + more_units, d) > plan.lower_llr + BOUNDARY_TOL
-            and (plan.max_units is None or n + more_units < plan.max_units)):
+    if len(seqs) == 1:
+        more_units, more_bad = units[0], bad[0]
+    else:
+        more_units, more_bad = sum(units), sum(bad)
+    # plan.llr's own arithmetic, with the plan's constants read once
+    g12, g2, cap = plan.g12, plan.g2, plan.max_units
+    if ((d + more_bad) * g12 - n * g2 < plan.upper_llr - BOUNDARY_TOL
+            and d * g12 - (n + more_units) * g2 > plan.lower_llr + BOUNDARY_TOL
+            and (cap is None or n + more_units < cap)):
         return CycleState(MONITORING, n + more_units, d + more_bad), None, len(seqs)
     for i, seq in enumerate(seqs):
         state, decision, _ = apply_record(plan, state, Evidence(seq, units[i], bad[i],

@@ -137,10 +137,14 @@ class SprtPlan:
         """LLR removed by a conforming unit, ln((1-p0)/(1-p1))."""
         return math.log((1.0 - self.p0) / (1.0 - self.p1))
 
+    @cached_property
+    def g12(self) -> float:
+        """g1 + g2, the LLR's slope in ``d`` (computed once: the LLR is evaluated per record)."""
+        return self.g1 + self.g2
+
     def llr(self, n, d):
         """LLR after ``n`` units with ``d`` nonconforming, from the counts."""
-        g2 = self.g2
-        return d * (self.g1 + g2) - n * g2
+        return d * self.g12 - n * self.g2
 
     # -- the same plan in the (n, d) plane ---------------------------------
     @property

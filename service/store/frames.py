@@ -160,6 +160,9 @@ class DrawMarks:
     def __init__(self, conn, items, cycles: dict[str, dict]):
         self._slots: dict[tuple[str, str], list[list]] = {}
         self._taken: list[tuple[int, int, int]] = []
+        # plain: no record of the batch can meet a draw (no drawn unit among its open
+        # cycles' and no plan of them requires one), so check() would answer _PLAIN for all
+        self.plain = not any(map(requires_draw, {c["plan_json"] for c in cycles.values()}))
         with_refs = list({it.facility_id for it in items
                           if it.unit_ref is not None and it.facility_id in cycles})
         if not with_refs:
@@ -176,6 +179,8 @@ class DrawMarks:
                     "LEFT JOIN records r ON r.seq = u.record_seq WHERE u.facility_id = ? AND "
                     "u.cycle = ? ORDER BY u.draw_id, u.draw_order", (fid, cyc["cycle"])):
                 self._slots.setdefault((fid, ref), []).append([draw_id, order, record_id])
+        if self._slots:
+            self.plain = False
 
     def check(self, item, cyc: dict) -> UnitCheck:
         """The rule's answer for one record of an open cycle (see :mod:`service.draw_rule`)."""

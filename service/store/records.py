@@ -10,7 +10,7 @@ from ..errors import Conflict, NotFound
 from ..record_checks import observation_note, old_limit
 from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
 from .common import plan_of, position, rows_of, state_of, where_in
-from .frames import DrawMarks
+from .frames import _PLAIN, DrawMarks
 from .group_commit import Job
 from .trail import append_entry, append_records, head, void_content
 
@@ -69,26 +69,35 @@ _TRAIL_ROW = operator.itemgetter(3, 14, 15, 16, 2, 10, 13, 8, 11, 4, 5, 6, 1, 0,
 sqlite3.register_adapter(type(None), lambda value: None)
 
 
-_UPDATE_STATE = (
+_STATE_SET = (
     "UPDATE cycles SET status = ?, units = ?, nonconforming = ?, llr = ?, llr_position = ?, "
     "decided_seq = ?, decided_at = ?, decided_after_units = ?, at_cap = ?, last_record_at = ?, "
-    "record_count = ? WHERE facility_id = ? AND cycle = ?")
+    "record_count = ? WHERE ")
+_UPDATE_STATE = _STATE_SET + "facility_id = ? AND cycle = ?"
+# Ingest names its cycles by rowid, read with them in the same transaction: one search of the
+# table instead of the primary-key index and then the table.
+_UPDATE_STATE_AT = _STATE_SET + "rowid = ?"
 
 # a cycle whose status stayed: only the counts and the position change (fewer columns to
 # rewrite, and the listing triggers on status are not woken)
-_UPDATE_COUNTS = (
+_UPDATE_COUNTS_AT = (
     "UPDATE cycles SET units = ?, nonconforming = ?, llr = ?, llr_position = ?, "
-    "last_record_at = ?, record_count = ? WHERE facility_id = ? AND cycle = ?")
+    "last_record_at = ?, record_count = ? WHERE rowid = ?")
 
 
-# The columns of a current cycle that ingest reads (and the watch chart after a clear).
-_CYCLE_COLUMNS = ("facility_id", "cycle", "plan_name", "plan_json", "status", "units",
-                  "nonconforming", "opened_at", "decided_seq", "decided_at",
-                  "decided_after_units", "at_cap", "closed_seq", "last_record_at",
-                  "record_count", "watch_state", "watch_value", "watch_units",
-                  "watch_nonconforming", "watch_peak", "watch_signal_seq", "watch_signal_at")
-_CURRENT_CYCLES = (f"SELECT {', '.join(_CYCLE_COLUMNS)} FROM cycles WHERE is_current = 1 AND "
-                   "facility_id IN ({marks})")
+# The columns of a current cycle that ingest reads; the state's come first, in CycleState's
+# order (at_cap made a bool on reading). Each column read costs about 0.1 us a cycle, so
+# last_record_at (only ever overwritten here) is left out, and the watch chart's columns are
+# read only for the cycles that have a chart running (watch_state set).
+_CYCLE_COLUMNS = ("status", "units", "nonconforming", "decided_seq", "decided_after_units",
+                  "decided_at", "at_cap", "facility_id", "cycle", "plan_name", "plan_json",
+                  "opened_at", "record_count", "watch_state", "_rowid")
+_CURRENT_CYCLES = (f"SELECT {', '.join(_CYCLE_COLUMNS[:-1])}, rowid FROM cycles WHERE "
+                   "is_current = 1 AND facility_id IN ({marks})")
+_WATCH_COLUMNS = ("watch_value", "watch_units", "watch_nonconforming", "watch_peak",
+                  "watch_signal_seq", "watch_signal_at")
+_WATCHED_CYCLES = (f"SELECT rowid, {', '.join(_WATCH_COLUMNS)} FROM cycles WHERE rowid IN "
+                   "({marks})")
 
 
 def _state_row(cyc: dict, state: CycleState) -> tuple:
@@ -101,13 +110,26 @@ def _state_row(cyc: dict, state: CycleState) -> tuple:
             cyc.get("record_count", 0), cyc["facility_id"], cyc["cycle"])
 
 
-def _counts_row(cyc: dict, state: CycleState) -> tuple:
-    """The parameters of _UPDATE_COUNTS."""
-    plan = cyc["_plan"]
-    llr = float(plan.llr(state.units, state.nonconforming))
-    return (state.units, state.nonconforming, llr, position(llr, plan.lower_llr, plan.upper_llr),
-            cyc.get("last_record_at"), cyc.get("record_count", 0), cyc["facility_id"],
-            cyc["cycle"])
+def _rowid(conn, cyc: dict) -> int:
+    """A cycle's rowid (read with the cycle; looked up for one opened in this transaction)."""
+    rowid = cyc.get("_rowid")
+    if rowid is None:
+        rowid = cyc["_rowid"] = conn.execute(
+            "SELECT rowid FROM cycles WHERE facility_id = ? AND cycle = ?",
+            (cyc["facility_id"], cyc["cycle"])).fetchone()[0]
+    return rowid
+
+
+def _counts_rows(conn, cycles: list[dict]) -> list[tuple]:
+    """The parameters of _UPDATE_COUNTS_AT for cycles whose status stayed."""
+    out = []
+    for cyc in cycles:
+        plan, state = cyc["_plan"], cyc["_state"]
+        llr = float(plan.llr(state.units, state.nonconforming))
+        out.append((state.units, state.nonconforming, llr,
+                    position(llr, plan.lower_llr, plan.upper_llr), cyc["last_record_at"],
+                    cyc["record_count"], cyc.get("_rowid") or _rowid(conn, cyc)))
+    return out
 
 
 class RecordsMixin:
@@ -163,6 +185,7 @@ class RecordsMixin:
         cycles = self._current_cycles(conn, list({it.facility_id for it in items}))
         seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
         marks = DrawMarks(conn, items, cycles)              # drawn units of open cycles
+        plain = marks.plain             # no record of this job can meet a draw
         oldest = old_limit(now)
         trail_n, trail_prev = head(conn)      # this job's records become the next entry
         batch: dict[str, tuple[RecordIn, int]] = {}     # ids first seen in this job
@@ -198,7 +221,7 @@ class RecordsMixin:
                                               f"no facility {it.facility_id!r} is registered",
                                               "facility_id"))
                 continue
-            unit = marks.check(it, cyc)
+            unit = _PLAIN if plain else marks.check(it, cyc)
             if unit.conflict is not None:       # a drawn unit counts once
                 rejected += 1
                 outcomes.append(IngestOutcome(rid, "conflict", None, it.facility_id,
@@ -235,16 +258,18 @@ class RecordsMixin:
             while True:
                 state, decision, counted = apply_run(cyc["_plan"], cyc["_state"], seqs, units,
                                                      bad, now)
+                cyc["_state"] = state
+                cyc["record_count"] += len(positions)
+                cyc["last_record_at"] = now
+                if decision is None and counted == len(seqs):
+                    break                       # the common case: all evidence, undecided
                 for p in positions[counted:]:   # kept, but the cycle had stopped: not evidence
                     row = inserts[p]
                     inserts[p] = row[:12] + (0,) + row[13:]
-                cyc["_state"] = state
                 if decision is not None:
                     decided.append((seqs[counted - 1], cyc, state,
                                     inserts[positions[counted - 1]][1]))
                     self._start_watch(cyc)
-                cyc["record_count"] += len(positions)
-                cyc["last_record_at"] = now
                 if cyc.get("watch_state") != "watching" or counted == len(seqs):
                     break
                 # after a clear, the post-decision records feed the watch chart
@@ -275,12 +300,14 @@ class RecordsMixin:
             append_records(conn, trail_n, trail_prev, list(map(_TRAIL_ROW, inserts)), now)
         # the cycles' new states: one statement for all whose status stayed, one for the rest
         same = [cyc for cyc in touched if cyc["_state"].status == cyc["status"]]
-        conn.executemany(_UPDATE_COUNTS, [_counts_row(c, c["_state"]) for c in same])
+        conn.executemany(_UPDATE_COUNTS_AT, _counts_rows(conn, same))
         if len(same) < len(touched):
-            conn.executemany(_UPDATE_STATE, [_state_row(c, c["_state"]) for c in touched
-                                             if c["_state"].status != c["status"]])
+            conn.executemany(_UPDATE_STATE_AT, [
+                _state_row(c, c["_state"])[:-2] + (_rowid(conn, c),) for c in touched
+                if c["_state"].status != c["status"]])
         for cyc in touched:
-            self._write_watch(conn, cyc)
+            if cyc.get("_watch_dirty"):
+                self._write_watch(conn, cyc)
         ordered = [(seq, decision_alerts(cyc["facility_id"], cyc["cycle"], cyc["plan_name"],
                                          cyc["_plan"], state, rid))
                    for seq, cyc, state, rid in decided] + [(seq, [a]) for seq, a in signals]
@@ -301,15 +328,23 @@ class RecordsMixin:
 
     @staticmethod
     def _current_cycles(conn, facility_ids: list[str]) -> dict[str, dict]:
-        """facility_id -> its current cycle row (the columns ingest uses), with the plan and
-        state decoded. Found through the maintained ``is_current`` flag: no join, and only
-        the columns needed (a row's every column would cost twice as much per facility)."""
-        out = {}
+        """facility_id -> its current cycle row (the columns ingest uses, and its rowid), with
+        the plan and state decoded. Found through the maintained ``is_current`` flag: no
+        join, and only the columns needed (a row's every column would cost twice as much per
+        facility)."""
+        out, plans = {}, {}
         for values in where_in(conn, _CURRENT_CYCLES, facility_ids):
             row = dict(zip(_CYCLE_COLUMNS, values))
-            row["_plan"] = plan_of(row["plan_json"])
-            row["_state"] = state_of(row)
-            out[row["facility_id"]] = row
+            text = values[10]
+            plan = plans.get(text)
+            if plan is None:
+                plan = plans[text] = plan_of(text)
+            row["_plan"] = plan
+            row["_state"] = CycleState(*values[:6], bool(values[6]))
+            out[values[7]] = row
+        watched = {row["_rowid"]: row for row in out.values() if row["watch_state"] is not None}
+        for rowid, *values in where_in(conn, _WATCHED_CYCLES, list(watched)):
+            watched[rowid].update(zip(_WATCH_COLUMNS, values))
         return out
 
     @staticmethod
