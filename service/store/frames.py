@@ -134,7 +134,7 @@ class FramesMixin:
 
 
 _REQUIRE_DRAW: dict[str, bool] = {}
-_PLAIN = UnitCheck()
+PLAIN = UnitCheck()
 
 
 def requires_draw(plan_json: str) -> bool:
@@ -161,7 +161,7 @@ class DrawMarks:
         self._slots: dict[tuple[str, str], list[list]] = {}
         self._taken: list[tuple[int, int, int]] = []
         # plain: no record of the batch can meet a draw (no drawn unit among its open
-        # cycles' and no plan of them requires one), so check() would answer _PLAIN for all
+        # cycles' and no plan of them requires one), so check() would answer PLAIN for all
         self.plain = not any(map(requires_draw, {c["plan_json"] for c in cycles.values()}))
         with_refs = list({it.facility_id for it in items
                           if it.unit_ref is not None and it.facility_id in cycles})
@@ -185,10 +185,10 @@ class DrawMarks:
     def check(self, item, cyc: dict) -> UnitCheck:
         """The rule's answer for one record of an open cycle (see :mod:`service.draw_rule`)."""
         if cyc["_state"].status != MONITORING:
-            return _PLAIN            # a post-decision record: kept, never evidence anyway
+            return PLAIN            # a post-decision record: kept, never evidence anyway
         slots = self._slots.get((item.facility_id, item.unit_ref)) if self._slots else None
         if slots is None and not requires_draw(cyc["plan_json"]):
-            return _PLAIN            # the common case: no draw involved
+            return PLAIN            # the common case: no draw involved
         return check_unit(requires_draw(cyc["plan_json"]), item.unit_ref,
                           [DrawSlot(*s) for s in slots or ()])
 

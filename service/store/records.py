@@ -9,8 +9,10 @@ from ..alerting import decision_alerts, void_alerts
 from ..errors import Conflict, NotFound
 from ..record_checks import observation_note, old_limit
 from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
-from .common import plan_of, position, rows_of, state_of, where_in
-from .frames import _PLAIN, DrawMarks
+from .common import plan_of, rows_of, state_of, where_in
+from .frames import PLAIN, DrawMarks
+from .ingest_cycles import (UPDATE_COUNTS_AT, UPDATE_STATE, UPDATE_STATE_AT, KeptCycles,
+                            counts_rows, rowid_of, state_row)
 from .group_commit import Job
 from .trail import append_entry, append_records, head, void_content
 
@@ -69,69 +71,6 @@ _TRAIL_ROW = operator.itemgetter(3, 14, 15, 16, 2, 10, 13, 8, 11, 4, 5, 6, 1, 0,
 sqlite3.register_adapter(type(None), lambda value: None)
 
 
-_STATE_SET = (
-    "UPDATE cycles SET status = ?, units = ?, nonconforming = ?, llr = ?, llr_position = ?, "
-    "decided_seq = ?, decided_at = ?, decided_after_units = ?, at_cap = ?, last_record_at = ?, "
-    "record_count = ? WHERE ")
-_UPDATE_STATE = _STATE_SET + "facility_id = ? AND cycle = ?"
-# Ingest names its cycles by rowid, read with them in the same transaction: one search of the
-# table instead of the primary-key index and then the table.
-_UPDATE_STATE_AT = _STATE_SET + "rowid = ?"
-
-# a cycle whose status stayed: only the counts and the position change (fewer columns to
-# rewrite, and the listing triggers on status are not woken)
-_UPDATE_COUNTS_AT = (
-    "UPDATE cycles SET units = ?, nonconforming = ?, llr = ?, llr_position = ?, "
-    "last_record_at = ?, record_count = ? WHERE rowid = ?")
-
-
-# The columns of a current cycle that ingest reads; the state's come first, in CycleState's
-# order (at_cap made a bool on reading). Each column read costs about 0.1 us a cycle, so
-# last_record_at (only ever overwritten here) is left out, and the watch chart's columns are
-# read only for the cycles that have a chart running (watch_state set).
-_CYCLE_COLUMNS = ("status", "units", "nonconforming", "decided_seq", "decided_after_units",
-                  "decided_at", "at_cap", "facility_id", "cycle", "plan_name", "plan_json",
-                  "opened_at", "record_count", "watch_state", "_rowid")
-_CURRENT_CYCLES = (f"SELECT {', '.join(_CYCLE_COLUMNS[:-1])}, rowid FROM cycles WHERE "
-                   "is_current = 1 AND facility_id IN ({marks})")
-_WATCH_COLUMNS = ("watch_value", "watch_units", "watch_nonconforming", "watch_peak",
-                  "watch_signal_seq", "watch_signal_at")
-_WATCHED_CYCLES = (f"SELECT rowid, {', '.join(_WATCH_COLUMNS)} FROM cycles WHERE rowid IN "
-                   "({marks})")
-
-
-def _state_row(cyc: dict, state: CycleState) -> tuple:
-    """The parameters of _UPDATE_STATE for a cycle row (with its plan) and its new state."""
-    plan = cyc["_plan"]
-    llr = float(plan.llr(state.units, state.nonconforming))
-    return (state.status, state.units, state.nonconforming, llr,
-            position(llr, plan.lower_llr, plan.upper_llr), state.decided_seq, state.decided_at,
-            state.decided_after_units, int(state.at_cap), cyc.get("last_record_at"),
-            cyc.get("record_count", 0), cyc["facility_id"], cyc["cycle"])
-
-
-def _rowid(conn, cyc: dict) -> int:
-    """A cycle's rowid (read with the cycle; looked up for one opened in this transaction)."""
-    rowid = cyc.get("_rowid")
-    if rowid is None:
-        rowid = cyc["_rowid"] = conn.execute(
-            "SELECT rowid FROM cycles WHERE facility_id = ? AND cycle = ?",
-            (cyc["facility_id"], cyc["cycle"])).fetchone()[0]
-    return rowid
-
-
-def _counts_rows(conn, cycles: list[dict]) -> list[tuple]:
-    """The parameters of _UPDATE_COUNTS_AT for cycles whose status stayed."""
-    out = []
-    for cyc in cycles:
-        plan, state = cyc["_plan"], cyc["_state"]
-        llr = float(plan.llr(state.units, state.nonconforming))
-        out.append((state.units, state.nonconforming, llr,
-                    position(llr, plan.lower_llr, plan.upper_llr), cyc["last_record_at"],
-                    cyc["record_count"], cyc.get("_rowid") or _rowid(conn, cyc)))
-    return out
-
-
 class RecordsMixin:
     def ingest(self, items: list[RecordIn], key_label: str | None, now: str,
                rejected_before: int = 0) -> list[IngestOutcome]:
@@ -169,6 +108,7 @@ class RecordsMixin:
                     for j in jobs:
                         j.outcomes = self._ingest_tx(conn, j)
             except Exception:
+                KeptCycles.forget(self)       # rolled back: the kept cycles ran ahead
                 # something failed: commit each job alone, so one cannot sink the others
                 for j in jobs:
                     j.outcomes = None
@@ -176,13 +116,18 @@ class RecordsMixin:
                         with self._begun() as conn:
                             j.outcomes = self._ingest_tx(conn, j)
                     except Exception as exc:  # reported to that job's caller only
+                        KeptCycles.forget(self)
                         j.error = exc
+            except BaseException:
+                KeptCycles.forget(self)
+                raise
 
     def _ingest_tx(self, conn, job: Job) -> list[IngestOutcome]:
         """One job's records, inside the write transaction the caller holds."""
         items, key_label, now = job.items, job.key_label, job.now
         stored = self._stored_content(conn, list({it.record_id for it in items}))
-        cycles = self._current_cycles(conn, list({it.facility_id for it in items}))
+        kept = KeptCycles.of(self, conn)
+        cycles = kept.cycles_for(conn, {it.facility_id for it in items})
         seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
         marks = DrawMarks(conn, items, cycles)              # drawn units of open cycles
         plain = marks.plain             # no record of this job can meet a draw
@@ -221,7 +166,7 @@ class RecordsMixin:
                                               f"no facility {it.facility_id!r} is registered",
                                               "facility_id"))
                 continue
-            unit = _PLAIN if plain else marks.check(it, cyc)
+            unit = PLAIN if plain else marks.check(it, cyc)
             if unit.conflict is not None:       # a drawn unit counts once
                 rejected += 1
                 outcomes.append(IngestOutcome(rid, "conflict", None, it.facility_id,
@@ -300,10 +245,10 @@ class RecordsMixin:
             append_records(conn, trail_n, trail_prev, list(map(_TRAIL_ROW, inserts)), now)
         # the cycles' new states: one statement for all whose status stayed, one for the rest
         same = [cyc for cyc in touched if cyc["_state"].status == cyc["status"]]
-        conn.executemany(_UPDATE_COUNTS_AT, _counts_rows(conn, same))
+        conn.executemany(UPDATE_COUNTS_AT, counts_rows(conn, same))
         if len(same) < len(touched):
-            conn.executemany(_UPDATE_STATE_AT, [
-                _state_row(c, c["_state"])[:-2] + (_rowid(conn, c),) for c in touched
+            conn.executemany(UPDATE_STATE_AT, [
+                state_row(c, c["_state"])[:-2] + (rowid_of(conn, c),) for c in touched
                 if c["_state"].status != c["status"]])
         for cyc in touched:
             if cyc.get("_watch_dirty"):
@@ -317,6 +262,7 @@ class RecordsMixin:
         self._bump(conn, "records_accepted", len(inserts))
         self._bump(conn, "records_duplicate", duplicates)
         self._bump(conn, "records_rejected", rejected + job.rejected_before)
+        kept.keep(conn, touched)
         return outcomes
 
     @staticmethod
@@ -327,30 +273,9 @@ class RecordsMixin:
                   "WHERE record_id IN ({marks})", ids)}
 
     @staticmethod
-    def _current_cycles(conn, facility_ids: list[str]) -> dict[str, dict]:
-        """facility_id -> its current cycle row (the columns ingest uses, and its rowid), with
-        the plan and state decoded. Found through the maintained ``is_current`` flag: no
-        join, and only the columns needed (a row's every column would cost twice as much per
-        facility)."""
-        out, plans = {}, {}
-        for values in where_in(conn, _CURRENT_CYCLES, facility_ids):
-            row = dict(zip(_CYCLE_COLUMNS, values))
-            text = values[10]
-            plan = plans.get(text)
-            if plan is None:
-                plan = plans[text] = plan_of(text)
-            row["_plan"] = plan
-            row["_state"] = CycleState(*values[:6], bool(values[6]))
-            out[values[7]] = row
-        watched = {row["_rowid"]: row for row in out.values() if row["watch_state"] is not None}
-        for rowid, *values in where_in(conn, _WATCHED_CYCLES, list(watched)):
-            watched[rowid].update(zip(_WATCH_COLUMNS, values))
-        return out
-
-    @staticmethod
     def _write_state(conn, cyc: dict, state: CycleState, extra: dict | None = None) -> None:
         """One cycle's state (a void); ingest writes all its cycles with two executemany."""
-        conn.execute(_UPDATE_STATE, _state_row(cyc, state))
+        conn.execute(UPDATE_STATE, state_row(cyc, state))
         if extra:
             sets = ", ".join(f"{k} = ?" for k in extra)
             conn.execute(f"UPDATE cycles SET {sets} WHERE facility_id = ? AND cycle = ?",
