@@ -108,14 +108,51 @@ def free_port() -> int:
         return s.getsockname()[1]
 
 
-def wait_up(url: str) -> None:
+def wait_up(url: str, proc: subprocess.Popen | None = None) -> None:
+    """Wait until ``url`` answers, then (given the server's process) until the server is
+    idle: each worker process computes its plans' full figures in the background after
+    start-up, and that must not be measured as the cost of the requests."""
     for _ in range(300):
         try:
             httpx2.get(url, timeout=1)
-            return
+            break
         except httpx2.TransportError:
             time.sleep(0.1)
-    raise RuntimeError(f"{url} did not come up")
+    else:
+        raise RuntimeError(f"{url} did not come up")
+    if proc is not None:
+        wait_idle(proc.pid)
+
+
+def group_cpu_s(pgid: int) -> float:
+    """CPU seconds (user + system) used so far by the processes of a process group."""
+    total = 0
+    for pid in os.listdir("/proc"):
+        if not pid.isdigit():
+            continue
+        try:
+            with open(f"/proc/{pid}/stat", encoding="ascii") as f:
+                fields = f.read().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if int(fields[2]) == pgid:
+            total += int(fields[11]) + int(fields[12])
+    return total / os.sysconf("SC_CLK_TCK")
+
+
+def wait_idle(pgid: int, window_s: float = 0.5, busy: float = 0.05, limit_s: float = 60) -> None:
+    """Until the process group uses less than ``busy`` of a CPU over ``window_s``."""
+    if not os.path.isdir("/proc"):
+        time.sleep(3)                    # no /proc: a fixed grace period instead
+        return
+    end = time.monotonic() + limit_s
+    last = group_cpu_s(pgid)
+    while time.monotonic() < end:
+        time.sleep(window_s)
+        now = group_cpu_s(pgid)
+        if now - last < busy * window_s:
+            return
+        last = now
 
 
 def body(tag: str, i: int, fid: str = "B0") -> dict:
@@ -268,8 +305,8 @@ def single_record(folder: Path, config: Path, count: int, concurrency: int,
                             preexec_fn=pin(SERVER_CPUS))
     try:
         url, bare_url = f"http://127.0.0.1:{port}", f"http://127.0.0.1:{bare_port}"
-        wait_up(url + "/healthz")
-        wait_up(bare_url + "/docs")
+        wait_up(url + "/healthz", ours)
+        wait_up(bare_url + "/docs", bare)
         register(url, admin, [("B0", "balanced")])
         targets = {"ours": (url, "/v1/records"), "bare": (bare_url, "/v1/records"),
                    "bare_async": (bare_url, "/async/v1/records")}
@@ -317,7 +354,7 @@ def two_workers(folder: Path, config: Path, count: int, concurrency: int,
             port = free_port()
             servers[w] = (start_service(db, config, port, workers=w),
                           f"http://127.0.0.1:{port}", field)
-            wait_up(servers[w][1] + "/healthz")
+            wait_up(servers[w][1] + "/healthz", servers[w][0])
             register(servers[w][1], admin, [("B0", "balanced")])
             client.run(servers[w][1], "/v1/records", field, 400, concurrency, f"warm{w}")
         for r in range(rounds):
@@ -367,7 +404,7 @@ def casefile_under_load(db: Path, fid: str, config: Path, count: int, concurrenc
     alone, during, pdf_s, covered = [], [], [], []
     try:
         url = f"http://127.0.0.1:{port}"
-        wait_up(url + "/healthz")
+        wait_up(url + "/healthz", proc)
         client.run(url, "/v1/records", field, 400, concurrency, "warm")
         for r in range(rounds):
             alone.append(client.run(url, "/v1/records", field, count, concurrency, f"a{r}"))
@@ -453,8 +490,8 @@ def random_ids(folder: Path, config: Path, stored: int, batches: int, rounds: in
     cost = {"empty": [], "full": []}
     try:
         conns = {}
-        for name, (_, port, field) in servers.items():
-            wait_up(f"http://127.0.0.1:{port}/healthz")
+        for name, (proc, port, field) in servers.items():
+            wait_up(f"http://127.0.0.1:{port}/healthz", proc)
             conns[name] = http.client.HTTPConnection("127.0.0.1", port, timeout=300)
         headers = {name: {"Authorization": f"Bearer {servers[name][2]}",
                           "Content-Type": "application/json"} for name in servers}
@@ -567,7 +604,7 @@ def batched(folder: Path, config: Path, batches: int, rounds: int = 3) -> dict:
     rates: dict[str, list[float]] = {"field": [], "analyst": []}
     try:
         url = f"http://127.0.0.1:{port}"
-        wait_up(url + "/healthz")
+        wait_up(url + "/healthz", proc)
         for f in range(10):
             httpx2.post(url + "/v1/facilities", headers={"Authorization": f"Bearer {keys['admin']}"},
                         timeout=10, json={"facility_id": f"B{f}", "name": "bench",
