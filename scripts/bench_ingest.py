@@ -313,7 +313,7 @@ def single_record(folder: Path, config: Path, count: int, concurrency: int,
         for name, (u, path) in targets.items():
             client.run(u, path, field, 200, concurrency, f"warm{name}")
         runs = {name: [] for name in targets}
-        for round_no in range(3):   # interleaved, so drift of the machine hits all alike
+        for round_no in range(5):   # interleaved, so drift of the machine hits all alike
             for name, (u, path) in targets.items():
                 runs[name].append(client.run(u, path, field, count, concurrency,
                                              f"{name}{round_no}"))
@@ -340,7 +340,7 @@ ACTOR = ("bench", "admin")
 
 
 def two_workers(folder: Path, config: Path, count: int, concurrency: int,
-                client: Client, rounds: int = 3) -> dict:
+                client: Client, rounds: int = 5) -> dict:
     """Single-record ingest against `serve --workers 2` and `--workers 1` (each on its own
     database, both up at once, rounds interleaved): throughput and p99 latency."""
     servers, runs = {}, {1: [], 2: []}
