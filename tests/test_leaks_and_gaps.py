@@ -107,3 +107,21 @@ def test_slow_headers_and_bodies_are_cut_at_the_read_deadline(tmp_path):
         assert time.monotonic() - started < 25
         # the server still answers others
         assert httpx2.get(server.url + "/healthz", timeout=10).status_code == 200
+        # a whole request is answered; the idle keep-alive connection is then closed at the
+        # deadline without another answer (uvicorn's own keep-alive limit is 5 s)
+        with socket.create_connection(("127.0.0.1", server.port), timeout=30) as s:
+            s.sendall(b"GET /healthz HTTP/1.1\r\nhost: x\r\n\r\n")
+            first = b""
+            while b'{"status":"ok"}' not in first:       # the whole answer, head and body
+                part = s.recv(4096)
+                assert part, first
+                first += part
+            assert first.startswith(b"HTTP/1.1 200") and first.endswith(b'{"status":"ok"}')
+            idle_from = time.monotonic()
+            rest = b""
+            while True:
+                part = s.recv(4096)
+                if not part:
+                    break
+                rest += part
+            assert rest == b"" and time.monotonic() - idle_from < 4.5

@@ -57,5 +57,5 @@ def serve(settings: Settings, log_level: str = "info") -> int:
     # import path, which worker processes import themselves)
     uvicorn.run("service.api.app:app_from_env", factory=True, host=settings.host,
                 port=settings.port, workers=settings.workers, log_level=log_level,
-                access_log=False, http="service.api.read_deadline:DeadlineH11Protocol")
+                access_log=False, http="service.api.read_deadline:DeadlineHttpToolsProtocol")
     return 0
