@@ -2,11 +2,10 @@
 rest of a request's headers or body, so a client sending one byte at a time could hold a
 connection (and a worker's slot) for as long as it liked.
 
-:class:`DeadlineHttpToolsProtocol` (what `seqaudit serve` runs: httptools' C parser costs a
-fraction of h11's pure-Python one per request) and :class:`DeadlineH11Protocol` arm a timer
-when a connection opens and again whenever it is ready for the next request; if the request's
-headers and body have not fully arrived when it fires, the connection is answered 408 (if
-nothing was sent yet) and closed. The limit is ``request_read_timeout_s`` (setting, seconds;
+:class:`DeadlineHttpToolsProtocol` (what `seqaudit serve` runs; httptools' C parser costs
+less per request than h11's pure-Python one) arms a timer when a connection opens and again
+whenever it is ready for the next request; if the request's headers and body have not fully
+arrived when it fires, the connection is answered 408 (if nothing was sent yet) and closed. The limit is ``request_read_timeout_s`` (setting, seconds;
 0 turns it off), passed to workers in the ``SEQAUDIT_REQUEST_READ_TIMEOUT_S`` environment
 variable and read once per process.
 """
@@ -15,8 +14,6 @@ from __future__ import annotations
 import functools
 import os
 
-import h11
-from uvicorn.protocols.http.h11_impl import H11Protocol
 from uvicorn.protocols.http.httptools_impl import HttpToolsProtocol
 
 ENV = "SEQAUDIT_REQUEST_READ_TIMEOUT_S"
@@ -34,45 +31,10 @@ def read_timeout_s() -> float:
         return 30.0
 
 
-class DeadlineH11Protocol(H11Protocol):
-    def connection_made(self, transport) -> None:
-        super().connection_made(transport)
-        self._arm_read_deadline()
-
-    def on_response_complete(self) -> None:
-        super().on_response_complete()
-        self._arm_read_deadline()
-
-    def connection_lost(self, exc) -> None:
-        timer = getattr(self, "_read_deadline", None)
-        if timer is not None:
-            timer.cancel()
-        super().connection_lost(exc)
-
-    def _arm_read_deadline(self) -> None:
-        timer = getattr(self, "_read_deadline", None)
-        if timer is not None:
-            timer.cancel()
-        limit = read_timeout_s()
-        self._read_deadline = self.loop.call_later(limit, self._read_deadline_passed) \
-            if limit > 0 else None
-
-    def _read_deadline_passed(self) -> None:
-        self._read_deadline = None
-        if self.transport.is_closing():
-            return
-        # IDLE: the request line or headers are incomplete; SEND_BODY: the body is
-        if self.conn.their_state not in (h11.IDLE, h11.SEND_BODY):
-            return
-        answered = self.cycle is not None and self.cycle.response_started
-        if not answered:
-            self.transport.write(_ANSWER % (len(_BODY), _BODY))
-        self.transport.close()
-
-
 class DeadlineHttpToolsProtocol(HttpToolsProtocol):
-    """The same deadline on uvicorn's httptools protocol: the timer is cut short only by the
-    whole of the awaited request (headers and body) having arrived."""
+    """uvicorn's httptools protocol with the read deadline: the timer is armed when the
+    connection opens and whenever it is ready for the next request, and is cut short only by
+    the whole of the awaited request (headers and body) having arrived."""
 
     def connection_made(self, transport) -> None:
         super().connection_made(transport)
@@ -109,7 +71,7 @@ class DeadlineHttpToolsProtocol(HttpToolsProtocol):
         self._read_deadline = None
         if self.transport.is_closing() or self._request_arrived:
             return
-        # (as for h11: a connection that has had an answer is closed without another)
+        # a connection that has had an answer (an idle keep-alive one) is closed without another
         answered = self.cycle is not None and self.cycle.response_started
         if not answered:
             self.transport.write(_ANSWER % (len(_BODY), _BODY))
