@@ -18,8 +18,9 @@ this process, pinned with the client, with the server's garbage-collector settin
    cycle against ingest alone: throughput >= 0.7, p99 <= 3x;
 6. the case-file PDF (build and render) at 20,000 records against 10,000: <= 2.2x;
 7. `--workers 2` against `--workers 1`: throughput >= 1.0x, p99 <= 2x;
-8. batches of random (UUID) ids posted to a server whose database holds 1,000,000 records
-   with random ids against an empty one, per record: <= 1.3x;
+8. batches of random (UUID 4) ids posted to a server whose database holds 1,000,000 records
+   with random ids against an empty one, per record: <= 1.3x; beside it (shown) the field
+   app's time-ordered ids (UUID 7) against 1,000,000 earlier ones;
 9. a batch of 1000 records spread over 1000 facilities against one over 10, per record:
    <= 1.5x;
 10. `GET /v1/facilities` and the dashboard overview (first page, default order) at 100,000
@@ -454,25 +455,44 @@ def pdf_scaling(db: Path, fids: dict[int, str], rounds: int = 1) -> dict:
             "ratio": min(times[big]) / min(times[small])}
 
 
-def _uuid_batch(fids: list[str]) -> dict:
-    return {"records": [dict(body("u", k, fids[k % len(fids)]), record_id=str(uuid.uuid4()))
+def uuid7(ms: int) -> str:
+    """A UUID of version 7 (RFC 9562, 5.7) for the Unix time ``ms``, as the field app makes."""
+    rand = int.from_bytes(os.urandom(10), "big")
+    value = ((ms & (1 << 48) - 1) << 80) | (0x7 << 76) | ((rand >> 62) & 0xFFF) << 64 \
+        | (0b10 << 62) | (rand & ((1 << 62) - 1))
+    return str(uuid.UUID(int=value))
+
+
+def _id_batch(fids: list[str], kind: str) -> dict:
+    if kind == "uuid7":
+        now = int(time.time() * 1000)
+        ids = [uuid7(now) for _ in range(1000)]
+    else:
+        ids = [str(uuid.uuid4()) for _ in range(1000)]
+    return {"records": [dict(body("u", k, fids[k % len(fids)]), record_id=ids[k])
                         for k in range(1000)]}
 
 
 def random_ids(folder: Path, config: Path, stored: int, batches: int, rounds: int = 3) -> dict:
-    """Batches of 1000 records with random (UUID 4) ids, as a field app sends them, posted to
-    a server whose database holds ``stored`` records with random ids and to one whose
-    database is empty (both up at once, rounds alternate): the per-record time."""
+    """Batches of 1000 records with random (UUID 4) ids posted to a server whose database
+    holds ``stored`` records with random ids and to one whose database is empty; beside them
+    (shown, not a target) time-ordered ids as the field app makes them (UUID 7) posted to a
+    database holding ``stored`` earlier ones. All servers up at once, rounds alternate: the
+    per-record time."""
     probes = [f"P{k}" for k in range(10)]
     servers = {}
-    for name in ("empty", "full"):
-        db = folder / f"uuid-{name}.db"
+    kinds = {"empty": "uuid4", "full": "uuid4", "full_uuid7": "uuid7"}
+    start_ms = int(time.time() * 1000) - stored      # earlier ids: one a millisecond
+    for name, kind in kinds.items():
+        db = folder / f"ids-{name}.db"
         m = monitor_for(db, config)
         m.store.add_facilities([(fid, "probe", "balanced", m.plans.snapshot("balanced"))
                                 for fid in probes + ["FILL"]], "2026-01-01T00:00:00Z", ACTOR)
         field = m.store.add_key("field", "bench tablet", "2026-01-01T00:00:00Z")[1]
         m.store.close()
-        if name == "full":
+        if name != "empty":
+            make = (lambda i: uuid7(start_ms + i)) if kind == "uuid7" \
+                else (lambda i: str(uuid.uuid4()))
             conn = sqlite3.connect(db, isolation_level=None)
             conn.execute("BEGIN")
             for start in range(0, stored, 100_000):
@@ -481,13 +501,12 @@ def random_ids(folder: Path, config: Path, stored: int, batches: int, rounds: in
                     "observed_utc, received_at, units, nonconforming, counted, void) VALUES "
                     "(?, ?, 'FILL', 1, '2026-11-30T10:00:00Z', '2026-11-30T10:00:00.000000Z', "
                     "'2026-11-30T10:00:00.000000Z', 1, ?, 1, 0)",
-                    [(i + 1, str(uuid.uuid4()), i % 2)
-                     for i in range(start, min(start + 100_000, stored))])
+                    [(i + 1, make(i), i % 2) for i in range(start, min(start + 100_000, stored))])
             conn.execute("COMMIT")
             conn.close()
         port = free_port()
         servers[name] = (start_service(db, config, port), port, field)
-    cost = {"empty": [], "full": []}
+    cost = {name: [] for name in kinds}
     try:
         conns = {}
         for name, (proc, port, field) in servers.items():
@@ -504,10 +523,10 @@ def random_ids(folder: Path, config: Path, stored: int, batches: int, rounds: in
                 raise RuntimeError(f"{got.status}: {answer[:300]!r}")
 
         for name in servers:
-            post(name, orjson.dumps(_uuid_batch(probes)))
+            post(name, orjson.dumps(_id_batch(probes, kinds[name])))
         for _ in range(rounds):
             for name in servers:
-                payloads = [orjson.dumps(_uuid_batch(probes)) for _ in range(batches)]
+                payloads = [orjson.dumps(_id_batch(probes, kinds[name])) for _ in range(batches)]
                 start = time.perf_counter()
                 for p in payloads:
                     post(name, p)
@@ -515,9 +534,9 @@ def random_ids(folder: Path, config: Path, stored: int, batches: int, rounds: in
     finally:
         for proc, _, _ in servers.values():
             stop(proc)
-    empty, full = min(cost["empty"]), min(cost["full"])
+    empty, full, full7 = min(cost["empty"]), min(cost["full"]), min(cost["full_uuid7"])
     return {"stored": stored, "empty_us": 1e6 * empty, "full_us": 1e6 * full,
-            "ratio": full / empty}
+            "ratio": full / empty, "full_uuid7_us": 1e6 * full7, "ratio_uuid7": full7 / empty}
 
 
 def many_facilities(folder: Path, config: Path, batches: int, rounds: int = 3) -> dict:
@@ -824,7 +843,9 @@ def print_run(number: int, res: dict) -> None:
     u = res.get("random_ids")
     if u:
         print(f"  random ids: {u['empty_us']:.1f} us/record empty, {u['full_us']:.1f} us/record "
-              f"with {u['stored']:,} stored")
+              f"with {u['stored']:,} stored; the field app's time-ordered ids (UUID 7) "
+              f"{u['full_uuid7_us']:.1f} us/record with {u['stored']:,} stored (ratio "
+              f"{u['ratio_uuid7']:.2f}, not a target)")
     m = res.get("many")
     if m:
         print(f"  batch over 10 facilities {m['ten_us']:.1f} us/record, over 1000 "

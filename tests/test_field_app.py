@@ -6,6 +6,7 @@ the database exactly once, whatever the network does; a refused one stays in the
 its reason; the app opens with no network once it has been loaded. Screenshots of each screen
 go to artifacts/browser/field-*.png.
 """
+import re
 import sqlite3
 import time
 from pathlib import Path
@@ -105,9 +106,13 @@ def wait_worker(pg):
     pg.wait_for_function("navigator.serviceWorker.controller !== null", timeout=30_000)
 
 
+UUID7 = re.compile(r"[0-9a-f]{8}-[0-9a-f]{4}-7[0-9a-f]{3}-[89ab][0-9a-f]{3}-[0-9a-f]{12}")
+
+
 def test_online_entries_are_stored_and_leave_the_assignments(tablet, site):
     server, keys, drawn, db = site
     pg = tablet
+    started_ms = time.time() * 1000
     pg.goto(server.url + "/field")
     pg.get_by_label("Field key", exact=True).wait_for()
     shot(pg, "sign-in")
@@ -141,6 +146,15 @@ def test_online_entries_are_stored_and_leave_the_assignments(tablet, site):
     pg.get_by_text(f"Saved {first[2]} at {fid}").wait_for()
     wait_outbox_empty(pg)
     assert stored(db, first) == {u: 1 for u in first}
+    # record ids are UUIDs of version 7 (RFC 9562, 5.7): the first 48 bits are the time of the
+    # save in milliseconds (this machine's clock, within this test), so later saves sort later
+    with sqlite3.connect(db) as conn:
+        ids = [r[0] for r in conn.execute("SELECT record_id FROM records WHERE unit_ref IN "
+                                          "(?, ?, ?) ORDER BY seq", first)]
+    assert len(ids) == 3 and all(UUID7.fullmatch(i) for i in ids), ids
+    ms = [int(i.replace("-", "")[:12], 16) for i in ids]
+    assert started_ms - 1000 <= ms[0] and ms[-1] <= time.time() * 1000 + 1000, (started_ms, ms)
+    assert ms == sorted(ms) and len(set(ids)) == 3
     # the re-checked units have left the tablet's list, the rest stay in draw order
     pg.wait_for_function(f"!document.querySelector('#todo').innerText.includes({first[0]!r})")
     todo = pg.locator("#todo .unit").all_inner_texts()
