@@ -15,7 +15,8 @@ One :class:`HeavyPool` per app (``app.state.heavy``); routes call :func:`run_hea
   and the call raises :class:`~service.errors.TimedOut` (503).
 * With a ``key`` (a hashable tuple of everything the result depends on) the result is kept
   in a bounded LRU cache and calls with the same key share one run. Keys that depend on the
-  database carry a fingerprint read from it (e.g. :meth:`Store.cycle_fingerprint`), so a
+  database carry a fingerprint read from it (e.g.
+  :func:`service.store.fingerprints.cycle_fingerprint`), so a
   void or finding, which changes the fingerprint, is never answered from the cache.
 * Errors raised by ``fn`` reach the caller as themselves (domain errors keep their fields).
 
@@ -38,7 +39,6 @@ from dataclasses import dataclass
 from typing import Any, Callable, Hashable
 
 from .errors import Busy, TimedOut
-
 
 
 @dataclass(frozen=True)

@@ -387,22 +387,3 @@ def reason(parts: dict, i: int, position: float, to_clear: int, to_flag: int, ag
     if not words:
         words.append(f"routine: {to_clear} conforming unit(s) from clearing")
     return "; ".join(words)
-
-
-def register_from_form(values: dict, size_text: str, false_flags_text: str,
-                       cap: int | None, calibrate: bool):
-    """The workbench's register fields: (DesignResult at alpha_per_facility, register block).
-
-    Raises ValueError with a message for the page when a field cannot be read.
-    """
-    from .stats.register import register_design
-    try:
-        size = int(size_text)
-    except ValueError:
-        raise ValueError("The register size must be a whole number of facilities.") from None
-    try:
-        flags = float(false_flags_text)
-    except ValueError:
-        raise ValueError("The false flags allowed must be a number, e.g. 2 or 0.5.") from None
-    return register_design(values["p0"], values["p1"], values["alpha"], values["beta"], size,
-                           flags, max_units=cap, calibrate=calibrate)

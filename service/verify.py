@@ -171,29 +171,27 @@ def _compare_together(together: list, units, bad, counted, out: list) -> None:
     for k, (cyc, status, n, d, diff) in enumerate(zip(
             (c for _, _, c, _ in together), res.status.tolist(), res.units.tolist(),
             res.nonconforming.tolist(), differs.tolist())):
-        if status == MONITORING and cyc["status"] == CLOSED:
-            status = CLOSED  # closed as undecided after a void while a later cycle was open
-        want = (status, n, d, after[k] if after[k] >= 0 else None)
-        have = (cyc["status"], cyc["units"], cyc["nonconforming"], cyc["decided_after_units"])
-        if want != have or diff:
-            out.append({"facility_id": cyc["facility_id"], "cycle": cyc["cycle"],
-                        "stored": dict(zip(("status", "units", "nonconforming",
-                                            "decided_after_units"), have)),
-                        "replayed": dict(zip(("status", "units", "nonconforming",
-                                              "decided_after_units"), want))})
+        _check(cyc, (status, n, d, after[k] if after[k] >= 0 else None), diff, out)
+
+
+_FIELDS = ("status", "units", "nonconforming", "decided_after_units")
 
 
 def _compare(cyc: dict, state: CycleState, counted, stored_counted, out: list) -> None:
     status = state.status
     if status == MONITORING and cyc["closed_seq"] is not None:
         status = CLOSED
-    if status == MONITORING and cyc["status"] == CLOSED:
-        status = CLOSED  # closed as undecided after a void while a later cycle was open
-    want = (status, state.units, state.nonconforming, state.decided_after_units)
-    have = (cyc["status"], cyc["units"], cyc["nonconforming"], cyc["decided_after_units"])
-    if want != have or not np.array_equal(counted, stored_counted):
+    _check(cyc, (status, state.units, state.nonconforming, state.decided_after_units),
+           not np.array_equal(counted, stored_counted), out)
+
+
+def _check(cyc: dict, want: tuple, counted_differ: bool, out: list) -> None:
+    """Add a mismatch to ``out`` if the replayed ``want`` (the _FIELDS) or the evidence
+    flags differ from the stored cycle."""
+    if want[0] == MONITORING and cyc["status"] == CLOSED:
+        # closed as undecided after a void while a later cycle was open
+        want = (CLOSED, *want[1:])
+    have = tuple(cyc[f] for f in _FIELDS)
+    if want != have or counted_differ:
         out.append({"facility_id": cyc["facility_id"], "cycle": cyc["cycle"],
-                    "stored": dict(zip(("status", "units", "nonconforming",
-                                        "decided_after_units"), have)),
-                    "replayed": dict(zip(("status", "units", "nonconforming",
-                                          "decided_after_units"), want))})
+                    "stored": dict(zip(_FIELDS, have)), "replayed": dict(zip(_FIELDS, want))})

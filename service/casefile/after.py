@@ -29,7 +29,8 @@ def pdf_section(cf: dict, p, t, grid, h2, small) -> list:
         out.append(p(f"{after['records']} record(s) were kept after the decision "
                      f"({after['units']} units, {after['nonconforming']} nonconforming), "
                      f"observed {t(span)} (UTC). They do not change the decision; they are "
-                     f"listed at the end of this file."))
+                     "summarised after the records of the cycle below, and the JSON case "
+                     "file lists each of them."))
     else:
         out.append(p("No record arrived after the decision."))
     w = cf.get("watch")

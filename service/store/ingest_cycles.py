@@ -65,7 +65,7 @@ def counts_rows(conn, cycles: list[dict]) -> list[tuple]:
         llr = float(plan.llr(state.units, state.nonconforming))
         out.append((state.units, state.nonconforming, llr,
                     position(llr, plan.lower_llr, plan.upper_llr), cyc["last_record_at"],
-                    cyc["record_count"], cyc.get("_rowid") or rowid_of(conn, cyc)))
+                    cyc["record_count"], rowid_of(conn, cyc)))
     return out
 
 
