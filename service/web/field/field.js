@@ -169,9 +169,10 @@ $("entry").addEventListener("submit", async (ev) => {
   $("unit").value = "";
   $("note").value = "";
   setResult(null);
-  $("entry-status").textContent = `Saved ${unit || "a unit"} at ${facility}; it is sent when the network allows.`;
   await renderTodo();
   await renderOutbox();
+  // said once the outbox shows the entry, so "Saved" and an "Empty" outbox never show together
+  $("entry-status").textContent = `Saved ${unit || "a unit"} at ${facility}; it is sent when the network allows.`;
   sender.flush();
 });
 
