@@ -1,4 +1,4 @@
-"""Canonical JSON and the hash chain of the tamper-evident trail (pure, stdlib only).
+"""Canonical JSON and the hash chain of the tamper-evident trail (pure: stdlib and orjson).
 
 Every entry of the trail has a number ``n`` (1, 2, 3, ... with no gaps), a ``kind``
 (``records``, ``void``, ``decision``, ``alert``, ``action``, ...), a time ``at`` (RFC 3339
@@ -29,6 +29,8 @@ from __future__ import annotations
 import hashlib
 import json
 from json.encoder import encode_basestring as _esc   # the C encoder when available
+
+from orjson import OPT_SORT_KEYS as _SORTED, dumps as _orjson_dumps
 
 GENESIS = "0" * 64
 
@@ -72,10 +74,21 @@ def records_content(rows: list[tuple]) -> bytes:
     """Canonical content of a ``records`` entry: ``{"fields": RECORD_FIELDS, "rows": [...]}``
     with one array per record (its values in RECORD_FIELDS order, in seq order).
 
-    The whole list goes through the C JSON encoder in one call (tuples are written as
-    arrays), about a microsecond per record; rows read back by hand-edited columns holding
-    something JSON cannot (a BLOB) are written as text no stored record has.
+    The whole list goes through orjson in one call (tuples are written as arrays), about
+    0.15 us per record against 1 us for the standard library's C encoder. For texts,
+    integers below 2**64 and null, which is all a record's columns hold, orjson writes
+    exactly the canonical form above (its escapes are the same: ``"``, ``\\``, the short
+    forms for five controls, lowercase ``\\u00XX`` for the others, everything else as UTF-8;
+    ``tests/test_trail_hash.py`` compares the two over every code point). A float (only
+    from a hand edit) comes out as a number with a point or an exponent, which no appended
+    entry holds; what orjson refuses (a BLOB, a lone surrogate, a larger integer) goes
+    through the standard encoder, and what that refuses too is written as text no stored
+    record has.
     """
+    try:
+        return _orjson_dumps({"fields": _FIELDS, "rows": rows}, option=_SORTED)
+    except TypeError:
+        pass
     try:
         return _encode({"fields": _FIELDS, "rows": rows}).encode("utf-8")
     except (TypeError, ValueError, UnicodeEncodeError):

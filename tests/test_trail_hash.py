@@ -102,3 +102,30 @@ def test_a_hand_edit_of_a_column_type_changes_the_records_content():
         edited = row[:i] + (other,) + row[i + 1:]
         assert records_content([edited]) != base, (i, other)
         json.loads(records_content([edited]))
+
+
+def test_records_content_writes_every_code_point_as_the_standard_encoder_does():
+    # records_content goes through orjson; the canonical form is defined by the standard
+    # library's encoder (json.dumps(..., ensure_ascii=False)). Brute force over every code
+    # point except the surrogates (which UTF-8 cannot hold), in 64 rows of texts.
+    points = [cp for cp in range(0x110000) if not 0xD800 <= cp <= 0xDFFF]
+    step = len(points) // 64 + 1
+    for start in range(0, len(points), step):
+        chunk = "".join(map(chr, points[start:start + step]))
+        row = (1, None, None, chunk, "F-1", chunk[:40], "k", 0, "\x00\x1f\x7f\u2028", chunk,
+               None, "t", "r-1", 2 ** 64 - 1, None, 1)
+        want = json.dumps({"fields": list(RECORD_FIELDS), "rows": [list(row)]},
+                          sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                          allow_nan=False).encode("utf-8")
+        assert records_content([row]) == want, start
+
+
+def test_records_content_refused_by_orjson_still_canonical_or_unique():
+    # integers past 64 bits and lone surrogates are refused by orjson: the standard encoder
+    # (or the text no stored record has) takes over, as before
+    big = (1, None, None, None, "F", None, "k", 0, None, "a", None, "t", "r", 2 ** 70, None, 1)
+    assert records_content([big]) == canonical({"fields": list(RECORD_FIELDS),
+                                                "rows": [list(big)]})
+    odd = big[:4] + ("F\ud800",) + big[5:]
+    # the lone surrogate written as its own three bytes (not UTF-8: text no record has)
+    assert b'"F\xed\xa0\x80"' in records_content([odd])
