@@ -315,9 +315,9 @@ class Monitor:
             raise Invalid(f"units must be at most {self.max_record_units} in one record "
                           f"(the service's max_record_units), got {rec.units}; split it into "
                           "several records", field="units")
-        for name in ("record_id", "facility_id"):
-            if getattr(rec, name) in DOT_IDS:
-                raise Invalid(f"{name} {ID_RULE}", field=name)
+        if rec.record_id in DOT_IDS or rec.facility_id in DOT_IDS:   # (one test per record)
+            name = "record_id" if rec.record_id in DOT_IDS else "facility_id"
+            raise Invalid(f"{name} {ID_RULE}", field=name)
         try:
             utc_text = normalize_utc_text(rec.observed_at)
         except ValueError as exc:
@@ -425,9 +425,13 @@ class Monitor:
         states: dict[str, dict] = {}
         counts = {"accepted": 0, "duplicate": 0, "conflict": 0, "invalid": 0}
         for pos, out in zip(checked.where, outcomes):
-            counts[out.status] += 1
-            result = {"index": pos, "record_id": out.record_id, "status": out.status,
-                      "code": _CODES[out.status], "seq": out.seq}
+            status = out.status
+            counts[status] += 1
+            result = {"index": pos, "record_id": out.record_id, "status": status,
+                      "code": _CODES[status], "seq": out.seq}
+            if out.note is None and out.detail is None and not with_state:
+                results[pos] = result           # the common answer: nothing to add
+                continue
             if out.detail:
                 result["errors"] = [{"field": _prefix(pos, batch) + (out.field or "body"),
                                      "message": out.detail}]

@@ -134,7 +134,9 @@ class RecordsMixin:
         oldest = old_limit(now)
         trail_n, trail_prev = head(conn)      # this job's records become the next entry
         batch: dict[str, tuple[RecordIn, int]] = {}     # ids first seen in this job
-        runs: dict[str, tuple[list, list, list, list]] = {}   # facility -> its new records
+        # facility -> the positions in ``inserts`` of its new evidence records (one list per
+        # facility: a batch spread over 1000 facilities makes 1000 of them)
+        runs: dict[str, list[int]] = {}
         inserts, alerts, outcomes = [], [], []
         duplicates = rejected = 0
         for it in items:
@@ -178,15 +180,13 @@ class RecordsMixin:
             if unit.excluded is None:
                 run = runs.get(it.facility_id)
                 if run is None:
-                    run = runs[it.facility_id] = ([], [], [], [])
-                run[0].append(len(inserts))
-                run[1].append(seq)
-                run[2].append(it.units)
-                run[3].append(it.nonconforming)
+                    runs[it.facility_id] = [len(inserts)]
+                else:
+                    run.append(len(inserts))
             else:       # kept and shown, but not evidence under the plan's draw rule
                 cyc["record_count"] += 1
                 cyc["last_record_at"] = now
-                runs.setdefault(it.facility_id, ([], [], [], []))
+                runs.setdefault(it.facility_id, [])
             inserts.append((seq, rid, it.facility_id, cyc["cycle"], it.observed_at,
                             it.observed_utc, now, it.units, it.nonconforming, it.unit_ref,
                             it.inspector, it.note, int(unit.excluded is None), key_label,
@@ -197,9 +197,16 @@ class RecordsMixin:
                                                            oldest)))
         # each facility's new records in receipt order, as one run through the pure update
         decided, touched, signals = [], [], []
-        for fid, (positions, seqs, units, bad) in runs.items():
+        for fid, positions in runs.items():
             cyc = cycles[fid]
             touched.append(cyc)
+            if len(positions) == 1:             # (most facilities of a widely spread batch)
+                row = inserts[positions[0]]
+                seqs, units, bad = [row[0]], [row[7]], [row[8]]
+            else:
+                rows = [inserts[p] for p in positions]
+                seqs, units, bad = ([r[0] for r in rows], [r[7] for r in rows],
+                                    [r[8] for r in rows])
             while True:
                 state, decision, counted = apply_run(cyc["_plan"], cyc["_state"], seqs, units,
                                                      bad, now)
