@@ -2,6 +2,7 @@
 
 - :mod:`.base`: connections, write transactions, counters, the action log
 - :mod:`.keys`, :mod:`.facilities` (and cycles), :mod:`.records` (ingest, voids),
+  :mod:`.record_keys` (finding a record by its id),
   :mod:`.alerts`, :mod:`.outbox` (webhooks, job leases, sessions), :mod:`.watch` (the
   watch chart of a cleared cycle), :mod:`.findings` (what a review found)
 - :mod:`.group_commit` (the writer thread), :mod:`.migrations`, :mod:`.common` (helpers)
@@ -19,6 +20,7 @@ from .findings import FindingsMixin
 from .keys import KeysMixin
 from .outbox import OutboxMixin, SessionMixin
 from .program import ProgramMixin
+from .record_keys import RecordKeysMixin
 from .records import IngestOutcome, RecordIn, RecordsMixin
 from .watch import WatchMixin
 
@@ -27,5 +29,5 @@ __all__ = ["Store", "RecordIn", "IngestOutcome", "hash_key", "plan_of", "plan_fr
 
 
 class Store(KeysMixin, FacilitiesMixin, RecordsMixin, WatchMixin, FindingsMixin, AlertsMixin,
-            FramesMixin, OutboxMixin, SessionMixin, ProgramMixin, StoreBase):
+            FramesMixin, OutboxMixin, SessionMixin, ProgramMixin, RecordKeysMixin, StoreBase):
     """Access to one SQLite file; safe to share between threads (one connection each)."""

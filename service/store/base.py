@@ -37,7 +37,8 @@ class StoreBase:
         self._local = threading.local()
         self._writer = threading.Lock()
         self._file_lock = WriterLock(self.path)     # the queue of writers across processes
-        self._committer = GroupCommitter(self._commit_group, on_exit=self._close_connection)
+        self._committer = GroupCommitter(self._commit_group, on_exit=self._close_connection,
+                                         after=self._after_commit)
 
     # -- connections and transactions ------------------------------------
     def _conn(self) -> sqlite3.Connection:
@@ -89,6 +90,9 @@ class StoreBase:
             if conn.in_transaction:
                 conn.execute("ROLLBACK")
             raise
+
+    def _after_commit(self) -> None:
+        """Upkeep after a group commit, once its callers are answered (see the records)."""
 
     def read(self, sql: str, params=()) -> list[dict]:
         return rows_of(self._conn().execute(sql, params))

@@ -45,14 +45,16 @@ class GroupCommitter:
     """Runs ``commit(take)`` on a writer thread for every group of jobs that queued up.
 
     ``commit`` gets its turn to write, then calls ``take()`` for the jobs waiting at that
-    moment (a list), and sets each job's outcomes or error; ``on_exit`` runs on the writer
-    thread when it stops (to close that thread's database connection).
+    moment (a list), and sets each job's outcomes or error; ``after`` runs once the group's
+    callers are told (upkeep that need not delay their answers; it must not raise);
+    ``on_exit`` runs on the writer thread when it stops (to close that thread's database
+    connection).
     """
 
     def __init__(self, commit: Callable[[Callable[[], list[Job]]], None],
-                 on_exit: Callable[[], None],
+                 on_exit: Callable[[], None], after: Callable[[], None] = lambda: None,
                  name: str = "seqaudit-writer"):
-        self._commit, self._on_exit, self._name = commit, on_exit, name
+        self._commit, self._on_exit, self._after, self._name = commit, on_exit, after, name
         self._jobs: queue.SimpleQueue = queue.SimpleQueue()
         self._thread: threading.Thread | None = None
         self._lock = threading.Lock()
@@ -122,6 +124,7 @@ class GroupCommitter:
                             job.error = exc
                 for job in jobs:
                     job.notify()
+                self._after()
                 if stop:
                     return
         finally:

@@ -204,7 +204,20 @@ def _v11(db: sqlite_utils.Database) -> None:
                + plan_of.format(row="OLD") + "; " + add + " END")
 
 
-MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8, _v9, _v10, _v11]
+def _v12(db: sqlite_utils.Database) -> None:
+    """Record ids found through ``record_keys`` (ordered by id, merged from the newest records
+    in batches) instead of a unique index on ``records.record_id``, which random ids made
+    cost a written page per record (see :mod:`.record_keys`)."""
+    db.execute("CREATE TABLE record_keys (record_id TEXT PRIMARY KEY, seq INTEGER NOT NULL) "
+               "WITHOUT ROWID")
+    db.execute("INSERT INTO record_keys (record_id, seq) SELECT record_id, seq FROM records "
+               "ORDER BY record_id")
+    db.execute("CREATE TABLE record_keys_merged (upto INTEGER NOT NULL)")
+    db.execute("INSERT INTO record_keys_merged (upto) SELECT COALESCE(MAX(seq), 0) FROM records")
+    db.execute("DROP INDEX idx_records_record_id")
+
+
+MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8, _v9, _v10, _v11, _v12]
 
 
 def migrate(db: sqlite_utils.Database) -> int:

@@ -14,6 +14,7 @@ from .frames import PLAIN, DrawMarks
 from .ingest_cycles import (UPDATE_COUNTS_AT, UPDATE_STATE, UPDATE_STATE_AT, KeptCycles,
                             counts_rows, rowid_of, state_row)
 from .group_commit import Job
+from .record_keys import BY_ID, RecentKeys
 from .trail import append_entry, append_records, head, void_content
 
 
@@ -87,6 +88,7 @@ class RecordsMixin:
         """
         job = Job(items, key_label, now, rejected_before)
         self._commit_group(lambda: [job])
+        self._after_commit()
         return job.result()
 
     async def ingest_async(self, items: list[RecordIn], key_label: str | None, now: str,
@@ -109,6 +111,7 @@ class RecordsMixin:
                         j.outcomes = self._ingest_tx(conn, j)
             except Exception:
                 KeptCycles.forget(self)       # rolled back: the kept cycles ran ahead
+                RecentKeys.forget(self)       # and so did the ids taken into the tail
                 # something failed: commit each job alone, so one cannot sink the others
                 for j in jobs:
                     j.outcomes = None
@@ -117,15 +120,19 @@ class RecordsMixin:
                             j.outcomes = self._ingest_tx(conn, j)
                     except Exception as exc:  # reported to that job's caller only
                         KeptCycles.forget(self)
+                        RecentKeys.forget(self)
                         j.error = exc
             except BaseException:
                 KeptCycles.forget(self)
+                RecentKeys.forget(self)
                 raise
 
     def _ingest_tx(self, conn, job: Job) -> list[IngestOutcome]:
         """One job's records, inside the write transaction the caller holds."""
         items, key_label, now = job.items, job.key_label, job.now
-        stored = self._stored_content(conn, list({it.record_id for it in items}))
+        recent = RecentKeys.of(self)
+        recent.catch_up(conn)
+        stored = self._stored_content(conn, recent, list({it.record_id for it in items}))
         kept = KeptCycles.of(self, conn)
         cycles = kept.cycles_for(conn, {it.facility_id for it in items})
         seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM records").fetchone()[0]
@@ -247,6 +254,7 @@ class RecordsMixin:
             trail_n, trail_prev = now_head
             inserts = [row[:-1] + (trail_n + 1,) for row in inserts]
         conn.executemany(_INSERT_RECORDS, inserts)
+        recent.add((row[1], row[0]) for row in inserts)     # the next job of this commit
         marks.save(conn)
         if inserts:
             append_records(conn, trail_n, trail_prev, list(map(_TRAIL_ROW, inserts)), now)
@@ -273,11 +281,16 @@ class RecordsMixin:
         return outcomes
 
     @staticmethod
-    def _stored_content(conn, ids: list[str]) -> dict[str, tuple[tuple, int]]:
+    def _stored_content(conn, recent: RecentKeys, ids: list[str]
+                        ) -> dict[str, tuple[tuple, int]]:
         """record_id -> (content, seq) of the stored records among ``ids``."""
-        return {rid: (tuple(content), seq) for rid, seq, *content in where_in(
-            conn, f"SELECT record_id, seq, {_CONTENT_COLUMNS} FROM records "
-                  "WHERE record_id IN ({marks})", ids)}
+        seqs = recent.seqs(conn, ids)
+        if not seqs:
+            return {}
+        # the id is read back too: a seq is only trusted for the id it was found under
+        return {rid: (tuple(content), seq) for seq, rid, *content in where_in(
+            conn, f"SELECT seq, record_id, {_CONTENT_COLUMNS} FROM records WHERE seq IN "
+                  "({marks})", list(seqs.values())) if seqs.get(rid) == seq}
 
     @staticmethod
     def _write_state(conn, cyc: dict, state: CycleState, extra: dict | None = None) -> None:
@@ -338,7 +351,7 @@ class RecordsMixin:
             (facility_id, cycle)).fetchall()
 
     def record(self, record_id: str) -> dict:
-        rows = self.read("SELECT * FROM records WHERE record_id = ?", (record_id,))
+        rows = self.read(BY_ID, (record_id,))
         if not rows:
             raise NotFound(f"no record {record_id!r}")
         return rows[0]
@@ -346,7 +359,7 @@ class RecordsMixin:
     def void_record(self, record_id: str, reason: str, now: str, actor) -> dict:
         """Mark a record void and replay its cycle from the records still standing."""
         with self.write() as conn:
-            rows = rows_of(conn.execute("SELECT * FROM records WHERE record_id = ?", (record_id,)))
+            rows = rows_of(conn.execute(BY_ID, (record_id,)))
             if not rows:
                 raise NotFound(f"no record {record_id!r}")
             rec = rows[0]

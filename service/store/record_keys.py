@@ -1,0 +1,169 @@
+"""Record ids: how a stored record is found by its id, at a cost per record that stays flat as
+records accumulate, even when the ids are random (UUID 4).
+
+A unique index on ``records.record_id`` puts each new random id on a page of its own among
+all the index's leaves: at 1,000,000 stored records a batch of 1000 dirtied about 1000 pages
+(4 MB written to the log, then again to the file at the checkpoint), and a record cost about
+2.5 times what it cost in an empty database. So the ids are kept in two parts:
+
+- ``record_keys`` (record_id -> seq, a table without rowid, ordered by id) holds the ids of
+  every record up to ``record_keys_merged.upto``;
+- the later records (the *tail*) are found through their ``seq``, in order of arrival: the
+  records table itself is their durable list, and each store keeps them in memory as a dict
+  (:class:`RecentKeys`), read again from the file whenever another connection may have
+  added some.
+
+When the tail reaches :data:`MERGE_AT` ids they are merged into ``record_keys`` in id order,
+a slice at a time (:data:`MERGE_SLICE` ids per transaction, so writers wait at most one
+slice): every leaf of the table is then written about once for a tail of ids, not once per
+id. Between the slices, and after a crash in the middle of a merge, some ids are in both
+parts, which is harmless: both name the same ``seq``, and a slice that meets an id already
+merged with the same ``seq`` skips it (another ``seq`` would be two records with one id and
+raises :class:`DuplicateKey`).
+
+The unique index's guarantee now comes from the one writer at a time (the store's write
+locks): inside a write transaction, the tail is read up to the newest record first, and the
+ingest checks every id against both parts before it inserts.
+"""
+from __future__ import annotations
+
+from .common import where_in
+
+# Tail ids that start a merge. A merge writes each leaf of record_keys about once: at 1M
+# stored ids (about 11,000 leaves) that is about 0.1 page per merged id. The tail costs about
+# 150 bytes of memory an id, and a lookup by id that misses record_keys reads the tail's rows.
+MERGE_AT = 128_000
+MERGE_SLICE = 16_000
+
+# One statement, so both parts are read in one snapshot (a merge between two statements
+# could move an id out of the tail before the first looked for it in record_keys).
+BY_ID = ("SELECT r.* FROM records r WHERE r.seq = (SELECT seq FROM record_keys WHERE "
+         "record_id = ?1) UNION ALL SELECT * FROM records WHERE seq > (SELECT upto FROM "
+         "record_keys_merged) AND record_id = ?1 LIMIT 1")
+
+
+class DuplicateKey(RuntimeError):
+    """Two stored records carry one id: the store's write locks were bypassed."""
+
+
+class RecentKeys:
+    """The ids of the records after ``record_keys_merged.upto`` (id -> seq), of one store.
+
+    Used only by a thread that holds the store's write lock. :meth:`catch_up` at the start of
+    each write transaction reads what other connections added; :meth:`add` takes this
+    transaction's own inserts (so a later job of the same commit sees them); a transaction
+    that fails must :meth:`forget` them all (they may never have reached the file).
+    """
+
+    __slots__ = ("upto", "seen", "ids")
+
+    def __init__(self):
+        self.upto, self.seen, self.ids = -1, 0, {}
+
+    @classmethod
+    def of(cls, store) -> "RecentKeys":
+        recent = store.__dict__.get("_recent_keys")
+        if recent is None:
+            recent = store.__dict__["_recent_keys"] = cls()
+        return recent
+
+    @staticmethod
+    def forget(store) -> None:
+        store.__dict__.pop("_recent_keys", None)
+
+    def catch_up(self, conn) -> None:
+        """Read the merge mark and every record newer than the last one known."""
+        upto = conn.execute("SELECT upto FROM record_keys_merged").fetchone()[0]
+        if upto != self.upto:
+            if upto < self.upto:            # the file is not the one these came from
+                self.ids, self.seen = {}, 0
+            elif self.ids:                  # another connection merged
+                self.ids = {rid: seq for rid, seq in self.ids.items() if seq > upto}
+            self.upto = upto
+        self.seen = max(self.seen, upto)
+        newest = self.seen
+        for rid, seq in conn.execute("SELECT record_id, seq FROM records WHERE seq > ?",
+                                     (self.seen,)):
+            self.ids[rid] = seq
+            newest = seq
+        self.seen = newest
+
+    def add(self, pairs) -> None:
+        """(record_id, seq) of records this transaction inserted, in seq order."""
+        ids = self.ids
+        for rid, seq in pairs:
+            ids[rid] = seq
+            self.seen = seq
+
+    def seqs(self, conn, record_ids: list[str]) -> dict[str, int]:
+        """record_id -> seq of the stored records among ``record_ids``."""
+        found, rest = {}, []
+        ids = self.ids
+        for rid in record_ids:
+            seq = ids.get(rid)
+            if seq is None:
+                rest.append(rid)
+            else:
+                found[rid] = seq
+        if rest:
+            found.update(where_in(conn, "SELECT record_id, seq FROM record_keys WHERE "
+                                        "record_id IN ({marks})", rest))
+        return found
+
+
+def merge_slice(conn, pairs: list[tuple[str, int]]) -> int:
+    """Insert (record_id, seq) pairs, sorted by id, into record_keys; pairs already there
+    with the same seq are skipped. Returns how many were inserted."""
+    before = conn.total_changes
+    conn.executemany("INSERT INTO record_keys (record_id, seq) VALUES (?, ?) "
+                     "ON CONFLICT (record_id) DO NOTHING", pairs)
+    inserted = conn.total_changes - before
+    if inserted < len(pairs):
+        wanted = dict(pairs)
+        for rid, seq in where_in(conn, "SELECT record_id, seq FROM record_keys WHERE "
+                                       "record_id IN ({marks})", list(wanted)):
+            if seq != wanted[rid]:
+                raise DuplicateKey(f"record_id {rid!r} is stored as seq {seq} and seq "
+                                   f"{wanted[rid]}")
+    return inserted
+
+
+def set_merged(conn, upto: int) -> None:
+    conn.execute("UPDATE record_keys_merged SET upto = MAX(upto, ?)", (upto,))
+
+
+class RecordKeysMixin:
+    """The merge of the tail into record_keys, run by the writer after its commits."""
+
+    merge_failure: str | None = None
+
+    def merge_record_keys(self, least: int | None = None) -> int:
+        """Merge the tail into ``record_keys`` once it holds at least ``least`` ids (default
+        :data:`MERGE_AT`), a slice per transaction; returns the number of ids merged (0: the
+        tail was shorter)."""
+        least = MERGE_AT if least is None else max(1, least)
+        with self._writer, self._file_lock, self._begun() as conn:
+            recent = RecentKeys.of(self)
+            recent.catch_up(conn)
+            if len(recent.ids) < least:
+                return 0
+            upto, pending = recent.seen, sorted(recent.ids.items())
+        for start in range(0, len(pending), MERGE_SLICE):
+            with self._writer, self._file_lock, self._begun() as conn:
+                merge_slice(conn, pending[start:start + MERGE_SLICE])
+        with self._writer, self._file_lock, self._begun() as conn:
+            set_merged(conn, upto)
+            RecentKeys.of(self).catch_up(conn)      # the merged ids leave the tail
+        return len(pending)
+
+    def _after_commit(self) -> None:
+        """After a group's callers have their answers: merge the tail if it is long enough.
+        A failure leaves the ids in the tail (still found) and is tried again after the
+        next commit; the last one is kept in ``merge_failure`` for the storage checks."""
+        try:
+            self.merge_record_keys()
+        except Exception as exc:  # noqa: BLE001 - kept and reported, the ids stay found
+            RecentKeys.forget(self)
+            self.merge_failure = f"{type(exc).__name__}: {exc}"
+        else:
+            self.merge_failure = None
