@@ -6,6 +6,7 @@ small (a few ids, slices of a few) so that a seeded walk crosses many of them, i
 posted again while they sit in the tail, in record_keys, or in both (between slices).
 """
 import sqlite3
+import time
 
 import numpy as np
 import pytest
@@ -163,6 +164,30 @@ def test_an_id_stored_twice_is_reported_not_hidden(tmp_path, small_merges):
     assert "DuplicateKey" in m.store.merge_failure
     assert statuses(m, more[:2] + [rec("twin", "RK-1", 0)]) == ["duplicate"] * 3
     m.store.close()
+
+
+def test_readyz_reports_an_id_stored_twice(tmp_path, small_merges):
+    from fastapi.testclient import TestClient
+
+    from service.api import create_app
+    from tests.conftest import make_keys, new_facility, quiet_settings, record
+    with TestClient(create_app(quiet_settings(tmp_path))) as c:
+        keys = make_keys(c.app.state.monitor.store)
+        fid = new_facility(c, keys)
+        post = {"records": [record(fid, "twin")]}
+        assert c.post("/v1/records", json=post, headers=keys.header("field")).status_code == 200
+        with c.app.state.monitor.store.write() as conn:
+            conn.execute("INSERT INTO record_keys (record_id, seq) VALUES ('twin', 999)")
+        assert c.get("/readyz").status_code == 200
+        more = {"records": [record(fid, f"m{k}") for k in range(45)]}
+        assert c.post("/v1/records", json=more, headers=keys.header("field")).status_code == 200
+        # the merge runs on the writer thread once the answer is out: wait for it
+        deadline = time.monotonic() + 30
+        while c.app.state.monitor.store.merge_failure is None and time.monotonic() < deadline:
+            time.sleep(0.01)
+        r = c.get("/readyz")
+        assert r.status_code == 503 and r.json()["type"] == "/problems/storage-corrupt"
+        assert "record ids stored twice" in r.json()["detail"] and "'twin'" in r.json()["detail"]
 
 
 def test_a_failed_job_does_not_leave_its_ids_behind(tmp_path, monkeypatch):

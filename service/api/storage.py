@@ -71,6 +71,8 @@ def readyz(request: Request) -> dict:
             found = [str(exc)]
         last = state.quick_check = (time.monotonic(), found)
     found = last[1]
+    if state.monitor.store.ids_duplicated:
+        found = [f"record ids stored twice ({state.monitor.store.merge_failure})"]
     if found != ["ok"]:
         raise Unavailable("PRAGMA quick_check found the database damaged: "
                           + "; ".join(found[:3]) + ". Stop the service and restore the latest "

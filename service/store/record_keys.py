@@ -68,6 +68,12 @@ class RecentKeys:
         return recent
 
     @staticmethod
+    def hint(store, record_id: str) -> int | None:
+        """The seq the tail gives an id, for a reader of any thread (who must check it)."""
+        recent = store.__dict__.get("_recent_keys")
+        return None if recent is None else recent.ids.get(record_id)
+
+    @staticmethod
     def forget(store) -> None:
         store.__dict__.pop("_recent_keys", None)
 
@@ -136,6 +142,8 @@ class RecordKeysMixin:
     """The merge of the tail into record_keys, run by the writer after its commits."""
 
     merge_failure: str | None = None
+    # two stored records with one id: the storage checks (/readyz) report the store damaged
+    ids_duplicated: bool = False
 
     def merge_record_keys(self, least: int | None = None) -> int:
         """Merge the tail into ``record_keys`` once it holds at least ``least`` ids (default
@@ -165,5 +173,6 @@ class RecordKeysMixin:
         except Exception as exc:  # noqa: BLE001 - kept and reported, the ids stay found
             RecentKeys.forget(self)
             self.merge_failure = f"{type(exc).__name__}: {exc}"
+            self.ids_duplicated = isinstance(exc, DuplicateKey)
         else:
-            self.merge_failure = None
+            self.merge_failure, self.ids_duplicated = None, False

@@ -351,7 +351,12 @@ class RecordsMixin:
             (facility_id, cycle)).fetchall()
 
     def record(self, record_id: str) -> dict:
-        rows = self.read(BY_ID, (record_id,))
+        # the tail's ids in memory are a hint (they may run ahead of this snapshot or have
+        # been merged meanwhile); without it an id of the tail costs a read of the tail
+        seq = RecentKeys.hint(self, record_id)
+        rows = self.read("SELECT * FROM records WHERE seq = ? AND record_id = ?",
+                         (seq, record_id)) if seq is not None else []
+        rows = rows or self.read(BY_ID, (record_id,))
         if not rows:
             raise NotFound(f"no record {record_id!r}")
         return rows[0]
