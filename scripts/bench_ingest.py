@@ -341,10 +341,31 @@ def monitor_for(db: Path, config: Path | None = None) -> Monitor:
 ACTOR = ("bench", "admin")
 
 
+def cpu_busy(cpus: set[int] | None) -> tuple[int, int]:
+    """(busy, total) clock ticks so far of the given CPUs (all CPUs if None), /proc/stat."""
+    busy = total = 0
+    try:
+        with open("/proc/stat", encoding="ascii") as f:
+            for line in f:
+                name, *values = line.split()
+                if not name.startswith("cpu") or name == "cpu":
+                    continue
+                if cpus is not None and int(name[3:]) not in cpus:
+                    continue
+                ticks = [int(v) for v in values]
+                total += sum(ticks[:8])
+                busy += sum(ticks[:8]) - ticks[3] - ticks[4]     # less idle and iowait
+    except OSError:
+        pass
+    return busy, total
+
+
 def two_workers(folder: Path, config: Path, count: int, concurrency: int,
                 client: Client, rounds: int = 5) -> dict:
     """Single-record ingest against `serve --workers 2` and `--workers 1` (each on its own
-    database, both up at once, rounds interleaved): throughput and p99 latency."""
+    database, both up at once, rounds interleaved): throughput and p99 latency; beside them
+    the servers' CPU time per request and how busy the server CPUs were (whether the
+    servers had CPU to spare that a second worker could use)."""
     servers, runs = {}, {1: [], 2: []}
     try:
         for w in (1, 2):
@@ -361,17 +382,24 @@ def two_workers(folder: Path, config: Path, count: int, concurrency: int,
             client.run(servers[w][1], "/v1/records", field, 400, concurrency, f"warm{w}")
         for r in range(rounds):
             for w in (1, 2):
-                _, url, field = servers[w]
-                runs[w].append(client.run(url, "/v1/records", field, count, concurrency,
-                                          f"w{w}r{r}"))
+                proc, url, field = servers[w]
+                cpu0, (busy0, total0) = group_cpu_s(proc.pid), cpu_busy(SERVER_CPUS)
+                got = client.run(url, "/v1/records", field, count, concurrency, f"w{w}r{r}")
+                busy1, total1 = cpu_busy(SERVER_CPUS)
+                got["cpu_us"] = 1e6 * (group_cpu_s(proc.pid) - cpu0) / count
+                got["server_cpus_busy"] = (busy1 - busy0) / max(1, total1 - total0)
+                runs[w].append(got)
     finally:
         for proc, _, _ in servers.values():
             stop(proc)
     best = {w: max(rs, key=lambda x: x["rps"]) for w, rs in runs.items()}
     p99 = {w: min(x["p99_ms"] for x in rs) for w, rs in runs.items()}
+    cpu = {w: sorted(x["cpu_us"] for x in rs)[len(rs) // 2] for w, rs in runs.items()}
+    busy = {w: sorted(x["server_cpus_busy"] for x in rs)[len(rs) // 2] for w, rs in runs.items()}
     return {"one_rps": best[1]["rps"], "two_rps": best[2]["rps"], "one_p99_ms": p99[1],
             "two_p99_ms": p99[2], "ratio_rps": best[2]["rps"] / best[1]["rps"],
-            "ratio_p99": p99[2] / p99[1], "rounds": runs}
+            "ratio_p99": p99[2] / p99[1], "one_cpu_us": cpu[1], "two_cpu_us": cpu[2],
+            "one_busy": busy[1], "two_busy": busy[2], "rounds": runs}
 
 
 def casefile_db(folder: Path, config: Path, sizes: list[int]) -> tuple[Path, dict[int, str]]:
@@ -849,7 +877,9 @@ def print_run(number: int, res: dict) -> None:
     w = res.get("workers")
     if w:
         print(f"  1 worker {w['one_rps']:,.0f} req/s p99 {w['one_p99_ms']:.1f} ms; 2 workers "
-              f"{w['two_rps']:,.0f} req/s p99 {w['two_p99_ms']:.1f} ms")
+              f"{w['two_rps']:,.0f} req/s p99 {w['two_p99_ms']:.1f} ms; server CPU a request "
+              f"(median round) {w['one_cpu_us']:.0f} vs {w['two_cpu_us']:.0f} us, server CPUs "
+              f"busy {100 * w['one_busy']:.0f} % vs {100 * w['two_busy']:.0f} %")
     u = res.get("random_ids")
     if u:
         print(f"  random ids: {u['empty_us']:.1f} us/record empty, {u['full_us']:.1f} us/record "
