@@ -57,16 +57,24 @@ def rowid_of(conn, cyc: dict) -> int:
     return rowid
 
 
-def counts_rows(conn, cycles: list[dict]) -> list[tuple]:
-    """The parameters of UPDATE_COUNTS_AT for cycles whose status stayed."""
-    out = []
+def cycle_writes(conn, cycles: list[dict]) -> tuple[list[tuple], list[tuple]]:
+    """The parameters of UPDATE_COUNTS_AT for the cycles whose status stayed and of
+    UPDATE_STATE_AT for the others, in one pass (a batch spread over 1000 facilities
+    touches 1000 cycles: each further pass over them costs about 0.1 us a record)."""
+    counts, states = [], []
     for cyc in cycles:
         plan, state = cyc["_plan"], cyc["_state"]
-        llr = float(plan.llr(state.units, state.nonconforming))
-        out.append((state.units, state.nonconforming, llr,
-                    position(llr, plan.lower_llr, plan.upper_llr), cyc["last_record_at"],
-                    cyc["record_count"], rowid_of(conn, cyc)))
-    return out
+        rowid = cyc.get("_rowid")
+        if rowid is None:
+            rowid = rowid_of(conn, cyc)
+        if state.status == cyc["status"]:
+            llr = float(plan.llr(state.units, state.nonconforming))
+            counts.append((state.units, state.nonconforming, llr,
+                           position(llr, plan.lower_llr, plan.upper_llr),
+                           cyc["last_record_at"], cyc["record_count"], rowid))
+        else:
+            states.append(state_row(cyc, state)[:-2] + (rowid,))
+    return counts, states
 
 
 def current_cycles(conn, facility_ids: list[str]) -> dict[str, dict]:
@@ -130,14 +138,20 @@ class KeptCycles:
 
     def cycles_for(self, conn, facility_ids: set[str]) -> dict[str, dict]:
         """facility_id -> its current cycle, kept or read (:func:`current_cycles`)."""
-        known = self.cycles
-        missing = [fid for fid in facility_ids if fid not in known]
+        known, out, missing = self.cycles, {}, []
+        for fid in facility_ids:                # (one pass: as many facilities as records)
+            cyc = known.get(fid)
+            if cyc is None:
+                missing.append(fid)
+            else:
+                out[fid] = cyc
         if missing:
             read = current_cycles(conn, missing)
             if len(known) + len(read) > KEPT_CYCLES:
                 known.clear()
             known.update(read)
-        return {fid: known[fid] for fid in facility_ids if fid in known}
+            out.update(read)
+        return out
 
     def keep(self, conn, touched: list[dict]) -> None:
         """After a job's writes: its cycles become what a read would give again, except

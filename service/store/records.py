@@ -12,7 +12,7 @@ from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
 from .common import plan_of, rows_of, state_of, where_in
 from .frames import PLAIN, DrawMarks
 from .ingest_cycles import (UPDATE_COUNTS_AT, UPDATE_STATE, UPDATE_STATE_AT, KeptCycles,
-                            counts_rows, rowid_of, state_row)
+                            cycle_writes, state_row)
 from .group_commit import Job
 from .record_keys import BY_ID, RecentKeys
 from .trail import append_entry, append_records, head, void_content
@@ -259,12 +259,10 @@ class RecordsMixin:
         if inserts:
             append_records(conn, trail_n, trail_prev, list(map(_TRAIL_ROW, inserts)), now)
         # the cycles' new states: one statement for all whose status stayed, one for the rest
-        same = [cyc for cyc in touched if cyc["_state"].status == cyc["status"]]
-        conn.executemany(UPDATE_COUNTS_AT, counts_rows(conn, same))
-        if len(same) < len(touched):
-            conn.executemany(UPDATE_STATE_AT, [
-                state_row(c, c["_state"])[:-2] + (rowid_of(conn, c),) for c in touched
-                if c["_state"].status != c["status"]])
+        counts, states = cycle_writes(conn, touched)
+        conn.executemany(UPDATE_COUNTS_AT, counts)
+        if states:
+            conn.executemany(UPDATE_STATE_AT, states)
         for cyc in touched:
             if cyc.get("_watch_dirty"):
                 self._write_watch(conn, cyc)
