@@ -32,3 +32,22 @@ def test_normalised_text_is_the_instant_in_utc(moment, offset_min, digits, lower
 def test_invalid_times_are_refused(text):
     with pytest.raises(ValueError):
         normalize_utc_text(text)
+
+
+@given(moment=st.datetimes(min_value=datetime(1, 1, 1), max_value=datetime(9999, 12, 31),
+                           timezones=st.just(timezone.utc)), digits=st.integers(0, 9))
+def test_utc_text_of_the_z_form_is_datetimes(moment, digits):
+    # the form tablets send (Z, whole seconds or a fraction) takes the fast path; the
+    # expected text comes from datetime's own formatting (fraction cut to microseconds)
+    frac = f"{moment.microsecond:06d}789"[:digits]
+    text = moment.strftime("%Y-%m-%dT%H:%M:%S").rjust(19, "0")   # (%Y: no zeros before 1000)
+    text += (f".{frac}" if digits else "") + "Z"
+    cut = moment.replace(microsecond=int(frac[:6].ljust(6, "0")) if digits else 0)
+    assert normalize_utc_text(text) == f"{cut.year:04d}" + cut.strftime("-%m-%dT%H:%M:%S.%fZ")
+
+
+def test_a_day_refused_once_is_refused_again():
+    # the second call reads the cached answer for the day
+    for _ in range(2):
+        with pytest.raises(ValueError, match="not a calendar date"):
+            normalize_utc_text("2027-02-29T10:00:00Z")
