@@ -147,7 +147,8 @@ class RecordsMixin:
         inserts, alerts, outcomes = [], [], []
         duplicates = rejected = 0
         for it in items:
-            rid = it.record_id
+            # one unpacking instead of a dozen attribute reads (it runs once per record)
+            rid, fid, observed_at, utc, units, bad, unit_ref, inspector, note = it
             earlier = batch.get(rid)
             if earlier is not None:
                 same, old_seq, old_fid = (earlier[0].content() == it.content(), earlier[1],
@@ -168,40 +169,43 @@ class RecordsMixin:
                         "already used for a record with different content; use a new "
                         "record_id for a new record", "record_id"))
                 continue
-            cyc = cycles.get(it.facility_id)
+            cyc = cycles.get(fid)
             if cyc is None:
                 rejected += 1
                 outcomes.append(IngestOutcome(rid, "invalid", None, None,
-                                              f"no facility {it.facility_id!r} is registered",
+                                              f"no facility {fid!r} is registered",
                                               "facility_id"))
                 continue
-            unit = PLAIN if plain else marks.check(it, cyc)
-            if unit.conflict is not None:       # a drawn unit counts once
-                rejected += 1
-                outcomes.append(IngestOutcome(rid, "conflict", None, it.facility_id,
-                                              unit.conflict, "unit_ref"))
-                continue
+            if plain:
+                draw_id = order = excluded = None
+            else:
+                draw_id, order, excluded, conflict = unit = marks.check(it, cyc)
+                if conflict is not None:        # a drawn unit counts once
+                    rejected += 1
+                    outcomes.append(IngestOutcome(rid, "conflict", None, fid, conflict,
+                                                  "unit_ref"))
+                    continue
             seq += 1
-            if unit.draw_id is not None:
+            if draw_id is not None:
                 marks.take(it, unit, seq)
-            if unit.excluded is None:
-                run = runs.get(it.facility_id)
+            if excluded is None:
+                run = runs.get(fid)
                 if run is None:
-                    runs[it.facility_id] = [len(inserts)]
+                    runs[fid] = [len(inserts)]
                 else:
                     run.append(len(inserts))
             else:       # kept and shown, but not evidence under the plan's draw rule
                 cyc["record_count"] += 1
                 cyc["last_record_at"] = now
-                runs.setdefault(it.facility_id, [])
-            inserts.append((seq, rid, it.facility_id, cyc["cycle"], it.observed_at,
-                            it.observed_utc, now, it.units, it.nonconforming, it.unit_ref,
-                            it.inspector, it.note, int(unit.excluded is None), key_label,
-                            unit.draw_id, unit.order, unit.excluded, trail_n + 1))
+                runs.setdefault(fid, [])
+            inserts.append((seq, rid, fid, cyc["cycle"], observed_at, utc, now, units, bad,
+                            unit_ref, inspector, note, int(excluded is None), key_label,
+                            draw_id, order, excluded, trail_n + 1))
             batch[rid] = (it, seq)
-            outcomes.append(IngestOutcome(rid, "accepted", seq, it.facility_id, None, None,
-                                          observation_note(it.observed_utc, cyc["opened_at"],
-                                                           oldest)))
+            opened = cyc["opened_at"]
+            outcomes.append(IngestOutcome(rid, "accepted", seq, fid, None, None,
+                                          None if utc >= oldest and utc >= opened
+                                          else observation_note(utc, opened, oldest)))
         # each facility's new records in receipt order, as one run through the pure update
         decided, touched, signals = [], [], []
         for fid, positions in runs.items():
