@@ -6,6 +6,7 @@ small (a few ids, slices of a few) so that a seeded walk crosses many of them, i
 posted again while they sit in the tail, in record_keys, or in both (between slices).
 """
 import sqlite3
+import threading
 import time
 
 import numpy as np
@@ -163,6 +164,11 @@ def test_an_id_stored_twice_is_reported_not_hidden(tmp_path, small_merges):
     assert m.store.merge_failure is not None and "'twin'" in m.store.merge_failure
     assert "DuplicateKey" in m.store.merge_failure
     assert statuses(m, more[:2] + [rec("twin", "RK-1", 0)]) == ["duplicate"] * 3
+    # no merge is tried again until a restart: the tail grows, the mark stays
+    assert statuses(m, [rec(f"n{k}", "RK-3", 0) for k in range(45)]) == ["accepted"] * 45
+    assert m.store.ids_duplicated
+    assert m.store.read("SELECT upto FROM record_keys_merged")[0]["upto"] == 0
+    assert len(RecentKeys.of(m.store).ids) == 91
     m.store.close()
 
 
@@ -247,4 +253,85 @@ def test_migration_moves_the_ids_of_an_older_file(tmp_path, monkeypatch):
     assert m.store.record("old-7")["seq"] == 8
     assert statuses(m, [rec("old-3", "RK-1", 1), rec("old-4", "RK-1", 1),
                         rec("new-1", "RK-1", 0)]) == ["duplicate", "conflict", "accepted"]
+    m.store.close()
+
+
+def test_the_writer_answers_waiting_jobs_between_merge_steps():
+    """GroupCommitter: upkeep runs a step at a time, and a job that arrives meanwhile is
+    committed before the next step (a merge never holds up this process's requests for more
+    than one of its transactions)."""
+    from service.store.group_commit import GroupCommitter, Job
+    log, steps = [], []
+    done = threading.Event()
+
+    def commit(take):
+        jobs = take()
+        log.append(("commit", len(jobs)))
+        for j in jobs:
+            j.outcomes = []
+
+    def after():
+        steps.append(1)
+        log.append(("step", len(steps)))
+        if len(steps) == 2:         # a request arrives during the second step
+            committer._submit(late)
+        if len(steps) == 5:
+            done.set()
+        return len(steps) < 5
+
+    committer = GroupCommitter(commit, on_exit=lambda: None, after=after)
+    late = Job([], None, "now", 0)
+    committer._submit(Job([], None, "now", 0))
+    assert done.wait(10)
+    committer.stop()
+    assert log == [("commit", 1), ("step", 1), ("step", 2), ("commit", 1), ("step", 3),
+                   ("step", 4), ("step", 5)]
+
+
+def test_a_failed_merge_step_resumes_where_it_stopped(tmp_path, small_merges, monkeypatch):
+    m = monitor(tmp_path / "resume.db")
+    register(m)
+    real = record_keys.merge_slice
+    calls = []
+
+    def flaky(conn, pairs):
+        calls.append([rid for rid, _ in pairs])
+        if len(calls) == 2:
+            raise sqlite3.OperationalError("disk I/O error")
+        return real(conn, pairs)
+
+    monkeypatch.setattr(record_keys, "merge_slice", flaky)
+    first = [rec(f"r{k:02d}", FIDS[k % 3], 0) for k in range(40)]      # MERGE_AT: 40
+    assert statuses(m, first) == ["accepted"] * 40
+    assert "disk I/O error" in m.store.merge_failure
+    assert m.store.read("SELECT upto FROM record_keys_merged")[0]["upto"] == 0
+    assert statuses(m, [rec("after", "RK-1", 0)]) == ["accepted"]    # its commit resumes
+    assert m.store.merge_failure is None
+    assert m.store.read("SELECT upto FROM record_keys_merged")[0]["upto"] == 40
+    # slices of 7 in id order: the failed second one again, then the rest, none twice
+    ids = sorted(r["record_id"] for r in first)
+    assert calls[1] == calls[2] == ids[7:14]
+    assert [rid for c in calls[:1] + calls[2:] for rid in c] == ids
+    check_found(m.store, {r["record_id"]: (r["facility_id"], 0) for r in first}
+                | {"after": ("RK-1", 0)})
+    m.store.close()
+
+
+def test_lookups_inside_a_write_do_not_feed_the_readers_tail(tmp_path):
+    """A row seen inside a write that then rolls back must not be remembered: its seq goes to
+    the next record, which must still be found by its own id."""
+    m = monitor(tmp_path / "roll.db")
+    register(m)
+    assert statuses(m, [rec("first", "RK-1", 0)]) == ["accepted"]
+    assert m.store.find_record("first")[0]["seq"] == 1          # the readers' tail starts
+    with pytest.raises(RuntimeError, match="changed my mind"), m.store.write() as conn:
+        conn.execute("INSERT INTO records (seq, record_id, facility_id, cycle, observed_at, "
+                     "received_at, units, nonconforming, counted, void) VALUES (2, 'ghost', "
+                     "'RK-1', 1, 'x', 'y', 1, 0, 1, 0)")
+        assert m.store.find_record("ghost")[0]["seq"] == 2      # seen in its own write
+        assert m.store.find_record("first")[0]["seq"] == 1
+        raise RuntimeError("changed my mind")
+    assert statuses(m, [rec("real", "RK-2", 0)]) == ["accepted"]
+    assert m.store.find_record("real")[0]["seq"] == 2
+    assert m.store.find_record("ghost") == []
     m.store.close()

@@ -36,6 +36,7 @@ class StoreBase:
         self.path.parent.mkdir(parents=True, exist_ok=True)
         self._local = threading.local()
         self._writer = threading.Lock()
+        self._lookup_lock = threading.Lock()        # readers' lookups by record id
         self._file_lock = WriterLock(self.path)     # the queue of writers across processes
         self._committer = GroupCommitter(self._commit_group, on_exit=self._close_connection,
                                          after=self._after_commit)
@@ -91,8 +92,10 @@ class StoreBase:
                 conn.execute("ROLLBACK")
             raise
 
-    def _after_commit(self) -> None:
-        """Upkeep after a group commit, once its callers are answered (see the records)."""
+    def _after_commit(self) -> bool:
+        """Upkeep after a group commit, once its callers are answered (the record ids' merge,
+        a step at a time); True while it has more to do."""
+        return False
 
     def read(self, sql: str, params=()) -> list[dict]:
         return rows_of(self._conn().execute(sql, params))

@@ -46,13 +46,15 @@ class GroupCommitter:
 
     ``commit`` gets its turn to write, then calls ``take()`` for the jobs waiting at that
     moment (a list), and sets each job's outcomes or error; ``after`` runs once the group's
-    callers are told (upkeep that need not delay their answers; it must not raise);
+    callers are told (upkeep that need not delay their answers; it must not raise): it does
+    one step and returns True while it has more, and the writer runs its next step only
+    when no job is waiting, so jobs wait for at most one step;
     ``on_exit`` runs on the writer thread when it stops (to close that thread's database
     connection).
     """
 
     def __init__(self, commit: Callable[[Callable[[], list[Job]]], None],
-                 on_exit: Callable[[], None], after: Callable[[], None] = lambda: None,
+                 on_exit: Callable[[], None], after: Callable[[], bool] = lambda: False,
                  name: str = "seqaudit-writer"):
         self._commit, self._on_exit, self._after, self._name = commit, on_exit, after, name
         self._jobs: queue.SimpleQueue = queue.SimpleQueue()
@@ -95,8 +97,12 @@ class GroupCommitter:
             self._jobs.put(job)
 
     def _loop(self) -> None:
+        more = False            # upkeep under way
         try:
             while True:
+                if more and self._jobs.empty():
+                    more = self._after()
+                    continue
                 first = self._jobs.get()
                 if first is _STOP:
                     return
@@ -124,7 +130,7 @@ class GroupCommitter:
                             job.error = exc
                 for job in jobs:
                     job.notify()
-                self._after()
+                more = self._after()
                 if stop:
                     return
         finally:

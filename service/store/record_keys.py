@@ -14,8 +14,8 @@ all the index's leaves: at 1,000,000 stored records a batch of 1000 dirtied abou
   added some.
 
 When the tail reaches :data:`MERGE_AT` ids they are merged into ``record_keys`` in id order,
-a slice at a time (:data:`MERGE_SLICE` ids per transaction, so writers wait at most one
-slice): every leaf of the table is then written about once for a tail of ids, not once per
+a slice at a time (:data:`MERGE_SLICE` ids per transaction, one transaction between group
+commits, so writers wait at most one slice): every leaf of the table is then written about once for a tail of ids, not once per
 id. Between the slices, and after a crash in the middle of a merge, some ids are in both
 parts, which is harmless: both name the same ``seq``, and a slice that meets an id already
 merged with the same ``seq`` skips it (another ``seq`` would be two records with one id and
@@ -27,7 +27,7 @@ ingest checks every id against both parts before it inserts.
 """
 from __future__ import annotations
 
-from .common import where_in
+from .common import rows_of, where_in
 
 # Tail ids that start a merge. A merge writes each leaf of record_keys about once: at 1M
 # stored ids (about 11,000 leaves) that is about 0.1 page per merged id. The tail costs about
@@ -35,11 +35,11 @@ from .common import where_in
 MERGE_AT = 128_000
 MERGE_SLICE = 16_000
 
-# One statement, so both parts are read in one snapshot (a merge between two statements
-# could move an id out of the tail before the first looked for it in record_keys).
-BY_ID = ("SELECT r.* FROM records r WHERE r.seq = (SELECT seq FROM record_keys WHERE "
-         "record_id = ?1) UNION ALL SELECT * FROM records WHERE seq > (SELECT upto FROM "
-         "record_keys_merged) AND record_id = ?1 LIMIT 1")
+# A lookup inside a write transaction (one statement, one snapshot): through record_keys,
+# else through the rows of the tail (at most about MERGE_AT of them).
+_SCAN_BY_ID = ("SELECT r.* FROM record_keys k JOIN records r ON r.seq = k.seq WHERE "
+               "k.record_id = ?1 AND r.record_id = ?1 UNION ALL SELECT * FROM records WHERE "
+               "seq > (SELECT upto FROM record_keys_merged) AND record_id = ?1 LIMIT 1")
 
 
 class DuplicateKey(RuntimeError):
@@ -66,12 +66,6 @@ class RecentKeys:
         if recent is None:
             recent = store.__dict__["_recent_keys"] = cls()
         return recent
-
-    @staticmethod
-    def hint(store, record_id: str) -> int | None:
-        """The seq the tail gives an id, for a reader of any thread (who must check it)."""
-        recent = store.__dict__.get("_recent_keys")
-        return None if recent is None else recent.ids.get(record_id)
 
     @staticmethod
     def forget(store) -> None:
@@ -138,41 +132,108 @@ def set_merged(conn, upto: int) -> None:
     conn.execute("UPDATE record_keys_merged SET upto = MAX(upto, ?)", (upto,))
 
 
+class _MergePlan:
+    """A merge under way: the mark it moves to, the (id, seq) pairs in id order, the next
+    slice. Its pairs are committed records, so it stays valid while ingest goes on."""
+
+    __slots__ = ("upto", "pending", "next")
+
+    def __init__(self, upto: int, pending: list[tuple[str, int]]):
+        self.upto, self.pending, self.next = upto, pending, 0
+
+
 class RecordKeysMixin:
-    """The merge of the tail into record_keys, run by the writer after its commits."""
+    """The merge of the tail into record_keys, run by the writer a transaction at a time
+    between its group commits; and the lookup of one record by id."""
 
     merge_failure: str | None = None
-    # two stored records with one id: the storage checks (/readyz) report the store damaged
+    # two stored records with one id: the storage checks (/readyz) report the store damaged,
+    # and no merge is tried again until the service restarts
     ids_duplicated: bool = False
 
-    def merge_record_keys(self, least: int | None = None) -> int:
-        """Merge the tail into ``record_keys`` once it holds at least ``least`` ids (default
-        :data:`MERGE_AT`), a slice per transaction; returns the number of ids merged (0: the
-        tail was shorter)."""
+    def merge_step(self, least: int | None = None) -> bool:
+        """One transaction of a merge: start one once the tail holds at least ``least`` ids
+        (default :data:`MERGE_AT`), or merge its next slice, or, all slices in, move the mark.
+        Returns True while the merge has more to do."""
         least = MERGE_AT if least is None else max(1, least)
-        with self._writer, self._file_lock, self._begun() as conn:
-            recent = RecentKeys.of(self)
-            recent.catch_up(conn)
-            if len(recent.ids) < least:
-                return 0
-            upto, pending = recent.seen, sorted(recent.ids.items())
-        for start in range(0, len(pending), MERGE_SLICE):
-            with self._writer, self._file_lock, self._begun() as conn:
-                merge_slice(conn, pending[start:start + MERGE_SLICE])
-        with self._writer, self._file_lock, self._begun() as conn:
-            set_merged(conn, upto)
-            RecentKeys.of(self).catch_up(conn)      # the merged ids leave the tail
-        return len(pending)
+        if self.ids_duplicated:
+            return False
+        recent = self.__dict__.get("_recent_keys")
+        if "_merge_plan" not in self.__dict__ and recent is not None and len(recent.ids) < least:
+            return False        # known without a transaction: the tail is only ever shorter
+        with self._writer:
+            plan = self.__dict__.get("_merge_plan")
+            if plan is None:
+                with self._file_lock, self._begun() as conn:
+                    recent = RecentKeys.of(self)
+                    recent.catch_up(conn)
+                    if len(recent.ids) < least:
+                        return False
+                    self.__dict__["_merge_plan"] = _MergePlan(recent.seen,
+                                                              sorted(recent.ids.items()))
+                return True
+            if plan.next < len(plan.pending):
+                with self._file_lock, self._begun() as conn:
+                    merge_slice(conn, plan.pending[plan.next:plan.next + MERGE_SLICE])
+                plan.next += MERGE_SLICE        # only once the slice is committed
+                return True
+            with self._file_lock, self._begun() as conn:
+                set_merged(conn, plan.upto)
+                RecentKeys.of(self).catch_up(conn)      # the merged ids leave the tail
+            del self.__dict__["_merge_plan"]
+            self.__dict__["_merged_last"] = len(plan.pending)
+            return False
 
-    def _after_commit(self) -> None:
-        """After a group's callers have their answers: merge the tail if it is long enough.
-        A failure leaves the ids in the tail (still found) and is tried again after the
-        next commit; the last one is kept in ``merge_failure`` for the storage checks."""
+    def merge_record_keys(self, least: int | None = None) -> int:
+        """The whole merge (:meth:`merge_step` until done); the number of ids the last
+        completed merge took (0: the tail was shorter than ``least``)."""
+        self.__dict__["_merged_last"] = 0
+        while self.merge_step(least):
+            pass
+        return self.__dict__["_merged_last"]
+
+    def _after_commit(self) -> bool:
+        """After a group's callers have their answers: one step of a merge, if the tail is
+        long enough or one is under way; True while it has more to do (the writer goes on
+        between groups). A failed step is tried again after the next commit, from where it
+        stopped; the last failure is kept in ``merge_failure`` for the storage checks."""
         try:
-            self.merge_record_keys()
+            more = self.merge_step()
+        except DuplicateKey as exc:
+            self.__dict__.pop("_merge_plan", None)
+            self.merge_failure, self.ids_duplicated = f"{type(exc).__name__}: {exc}", True
+            return False
         except Exception as exc:  # noqa: BLE001 - kept and reported, the ids stay found
-            RecentKeys.forget(self)
             self.merge_failure = f"{type(exc).__name__}: {exc}"
-            self.ids_duplicated = isinstance(exc, DuplicateKey)
-        else:
-            self.merge_failure, self.ids_duplicated = None, False
+            return False
+        self.merge_failure = None
+        return more
+
+    def _by_id(self, conn, record_id: str) -> list[dict]:
+        """The stored record with this id (a list of at most one row), read in ``conn``'s
+        transaction, which the caller holds."""
+        keys = self.__dict__.get("_reader_keys")
+        if keys is None:
+            keys = self.__dict__["_reader_keys"] = RecentKeys()
+        keys.catch_up(conn)
+        seq = keys.seqs(conn, [record_id]).get(record_id)
+        if seq is None:
+            return []
+        return rows_of(conn.execute("SELECT * FROM records WHERE seq = ? AND record_id = ?",
+                                    (seq, record_id)))
+
+    def find_record(self, record_id: str) -> list[dict]:
+        """The stored record with this id, as a list of at most one row. Readers keep a tail
+        of their own (behind one lock), caught up in the lookup's read transaction: a lookup
+        costs the records added since the last one, never a read of the whole tail."""
+        conn = self._conn()
+        if conn.in_transaction:
+            # inside a write, whose rows may yet roll back: the readers' tail must not take
+            # them (their seqs would be given to other records), so read the tail's rows
+            return rows_of(conn.execute(_SCAN_BY_ID, (record_id,)))
+        with self._lookup_lock:
+            conn.execute("BEGIN")
+            try:
+                return self._by_id(conn, record_id)
+            finally:
+                conn.execute("COMMIT")

@@ -14,7 +14,7 @@ from .frames import PLAIN, DrawMarks
 from .ingest_cycles import (UPDATE_COUNTS_AT, UPDATE_STATE, UPDATE_STATE_AT, KeptCycles,
                             cycle_writes, state_row)
 from .group_commit import Job
-from .record_keys import BY_ID, RecentKeys
+from .record_keys import DuplicateKey, RecentKeys
 from .trail import append_entry, append_records, head, void_content
 
 
@@ -88,7 +88,8 @@ class RecordsMixin:
         """
         job = Job(items, key_label, now, rejected_before)
         self._commit_group(lambda: [job])
-        self._after_commit()
+        while self._after_commit():     # a blocking caller may wait for a whole merge
+            pass
         return job.result()
 
     async def ingest_async(self, items: list[RecordIn], key_label: str | None, now: str,
@@ -289,10 +290,15 @@ class RecordsMixin:
         seqs = recent.seqs(conn, ids)
         if not seqs:
             return {}
-        # the id is read back too: a seq is only trusted for the id it was found under
-        return {rid: (tuple(content), seq) for seq, rid, *content in where_in(
+        # the id is read back too: a seq found for an id must hold a record of that id
+        out = {rid: (tuple(content), seq) for seq, rid, *content in where_in(
             conn, f"SELECT seq, record_id, {_CONTENT_COLUMNS} FROM records WHERE seq IN "
                   "({marks})", list(seqs.values())) if seqs.get(rid) == seq}
+        if len(out) < len(seqs):        # refuse the job rather than store an id twice
+            rid = next(rid for rid in seqs if rid not in out)
+            raise DuplicateKey(f"record_id {rid!r} is indexed as seq {seqs[rid]}, which holds "
+                               "another record")
+        return out
 
     @staticmethod
     def _write_state(conn, cyc: dict, state: CycleState, extra: dict | None = None) -> None:
@@ -353,12 +359,7 @@ class RecordsMixin:
             (facility_id, cycle)).fetchall()
 
     def record(self, record_id: str) -> dict:
-        # the tail's ids in memory are a hint (they may run ahead of this snapshot or have
-        # been merged meanwhile); without it an id of the tail costs a read of the tail
-        seq = RecentKeys.hint(self, record_id)
-        rows = self.read("SELECT * FROM records WHERE seq = ? AND record_id = ?",
-                         (seq, record_id)) if seq is not None else []
-        rows = rows or self.read(BY_ID, (record_id,))
+        rows = self.find_record(record_id)
         if not rows:
             raise NotFound(f"no record {record_id!r}")
         return rows[0]
@@ -366,7 +367,11 @@ class RecordsMixin:
     def void_record(self, record_id: str, reason: str, now: str, actor) -> dict:
         """Mark a record void and replay its cycle from the records still standing."""
         with self.write() as conn:
-            rows = rows_of(conn.execute(BY_ID, (record_id,)))
+            recent = RecentKeys.of(self)
+            recent.catch_up(conn)
+            seq = recent.seqs(conn, [record_id]).get(record_id)
+            rows = [] if seq is None else rows_of(conn.execute(
+                "SELECT * FROM records WHERE seq = ? AND record_id = ?", (seq, record_id)))
             if not rows:
                 raise NotFound(f"no record {record_id!r}")
             rec = rows[0]
