@@ -14,14 +14,13 @@ from typing import Any, Callable
 import orjson
 from pydantic import TypeAdapter, ValidationError
 
-from .batch_schema import BATCH_UNCHECKED, counts_hold
 from .clock import format_time, normalize_utc_text, parse_rfc3339, utc_now
 from .draw_rule import exclusion_text
 from .errors import Conflict, Invalid, NotFound, TooLarge
 from .plans import PlanSpec
 from .record_checks import OLD as OLD_RECORD, WORDS as OBSERVATION_WORDS
 from .schemas import DOT_IDS, ID_PATTERN, ID_RULE, NO_NUL, PRINTABLE, RFC3339_PATTERN, \
-    FacilityCreate, RecordCreate
+    FacilityCreate, RecordBatchCreate, RecordCreate
 from .stats import Recheck, SprtPlan, design
 from .watching import design_for
 from .stats.calibrate import calibrate
@@ -29,6 +28,7 @@ from .store import RecordIn, Store
 
 Actor = tuple[str, str]   # (key label, role)
 _RECORDS = TypeAdapter(list[RecordCreate])
+_BATCH = TypeAdapter(RecordBatchCreate)
 _CODES = {"accepted": 201, "duplicate": 200, "conflict": 409, "invalid": 422}
 
 
@@ -349,11 +349,11 @@ class Monitor:
         """A well-formed batch is validated straight from its JSON in one pass through
         pydantic-core; any other body is parsed and checked piece by piece, which names
         each fault."""
-        try:    # (batch_schema: the counts check made after pydantic-core's pass)
-            records = BATCH_UNCHECKED.validate_json(body).records
+        try:
+            records = _BATCH.validate_json(body).records
         except ValidationError:
             records = None
-        if records is None or len(records) > self.max_batch or not counts_hold(records):
+        if records is None or len(records) > self.max_batch:
             try:
                 payload = orjson.loads(body)
             except orjson.JSONDecodeError as exc:
