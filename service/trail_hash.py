@@ -22,7 +22,7 @@ allow_nan=False).encode("utf-8")`` writes; :func:`canonical` is that call.
 
 The records of one ingest job (a request's batch, or one record) form one entry of kind
 ``records`` whose content lists them as arrays (:func:`records_content`): one SHA-256 and one
-pass of the C JSON encoder per job rather than per record keeps the ingest path fast.
+pass of orjson per job rather than per record keeps the ingest path fast.
 """
 from __future__ import annotations
 

@@ -15,7 +15,7 @@ write transaction that writes it, as an entry of the ``trail`` table::
 
 The hashing itself is :mod:`service.trail_hash` (pure). :func:`append_entry` is the one way
 to append one entry; the ingest path appends each job's new records as one ``records``
-entry with :func:`append_records` (one read of the head, one pass of the C JSON encoder and
+entry with :func:`append_records` (one read of the head, one pass of orjson and
 one SHA-256 per job; each record's ``trail_n`` is that entry's number).
 
 To have ``seqaudit verify`` compare a table with its entries, give its kinds a reader in
