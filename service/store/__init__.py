@@ -1,7 +1,8 @@
 """The one package that owns SQLite: one module per table family, composed into one Store.
 
 - :mod:`.base`: connections, write transactions, counters, the action log
-- :mod:`.keys`, :mod:`.facilities` (and cycles), :mod:`.records` (ingest, voids),
+- :mod:`.keys`, :mod:`.facilities` (and cycles), :mod:`.records` (ingest),
+  :mod:`.voids`,
   :mod:`.record_keys` (finding a record by its id),
   :mod:`.alerts`, :mod:`.outbox` (webhooks, job leases, sessions), :mod:`.watch` (the
   watch chart of a cleared cycle), :mod:`.findings` (what a review found)
@@ -22,12 +23,14 @@ from .outbox import OutboxMixin, SessionMixin
 from .program import ProgramMixin
 from .record_keys import RecordKeysMixin
 from .records import IngestOutcome, RecordIn, RecordsMixin
+from .voids import VoidsMixin
 from .watch import WatchMixin
 
 __all__ = ["Store", "RecordIn", "IngestOutcome", "hash_key", "plan_of", "plan_from_snapshot",
            "ROLES", "KEY_PREFIX"]
 
 
-class Store(KeysMixin, FacilitiesMixin, RecordsMixin, WatchMixin, FindingsMixin, AlertsMixin,
-            FramesMixin, OutboxMixin, SessionMixin, ProgramMixin, RecordKeysMixin, StoreBase):
+class Store(KeysMixin, FacilitiesMixin, RecordsMixin, VoidsMixin, WatchMixin, FindingsMixin,
+            AlertsMixin, FramesMixin, OutboxMixin, SessionMixin, ProgramMixin, RecordKeysMixin,
+            StoreBase):
     """Access to one SQLite file; safe to share between threads (one connection each)."""

@@ -1,21 +1,21 @@
-"""Inspection records: ingest (group commit), a cycle's records, voids."""
+"""Inspection records: ingest (group commit), a cycle's records, a record by its id (voids:
+:mod:`.voids`)."""
 from __future__ import annotations
 
 import operator
 import sqlite3
 from typing import NamedTuple
 
-from ..alerting import decision_alerts, void_alerts
-from ..errors import Conflict, NotFound
+from ..alerting import decision_alerts
+from ..errors import NotFound
 from ..record_checks import observation_note, old_limit
-from ..monitor import CLOSED, CycleState, Evidence, apply_run, llr_path, replay
-from .common import plan_of, rows_of, state_of, where_in
+from ..monitor import Evidence, apply_run, llr_path
+from .common import plan_of, where_in
 from .frames import PLAIN, DrawMarks
-from .ingest_cycles import (UPDATE_COUNTS_AT, UPDATE_STATE, UPDATE_STATE_AT, KeptCycles,
-                            cycle_writes, state_row)
+from .ingest_cycles import UPDATE_COUNTS_AT, UPDATE_STATE_AT, KeptCycles, cycle_writes
 from .group_commit import Job
 from .record_keys import DuplicateKey, RecentKeys
-from .trail import append_entry, append_records, head, void_content
+from .trail import append_records, head
 
 
 class RecordIn(NamedTuple):
@@ -300,15 +300,6 @@ class RecordsMixin:
                                "another record")
         return out
 
-    @staticmethod
-    def _write_state(conn, cyc: dict, state: CycleState, extra: dict | None = None) -> None:
-        """One cycle's state (a void); ingest writes all its cycles with two executemany."""
-        conn.execute(UPDATE_STATE, state_row(cyc, state))
-        if extra:
-            sets = ", ".join(f"{k} = ?" for k in extra)
-            conn.execute(f"UPDATE cycles SET {sets} WHERE facility_id = ? AND cycle = ?",
-                         [*extra.values(), cyc["facility_id"], cyc["cycle"]])
-
     def records(self, facility_id: str, cycle: int) -> list[dict]:
         """A cycle's records in evidence (receipt) order, voids included, with the LLR after each."""
         cyc = self.cycle(facility_id, cycle)
@@ -363,63 +354,3 @@ class RecordsMixin:
         if not rows:
             raise NotFound(f"no record {record_id!r}")
         return rows[0]
-
-    def void_record(self, record_id: str, reason: str, now: str, actor) -> dict:
-        """Mark a record void and replay its cycle from the records still standing."""
-        with self.write() as conn:
-            recent = RecentKeys.of(self)
-            recent.catch_up(conn)
-            seq = recent.seqs(conn, [record_id]).get(record_id)
-            rows = [] if seq is None else rows_of(conn.execute(
-                "SELECT * FROM records WHERE seq = ? AND record_id = ?", (seq, record_id)))
-            if not rows:
-                raise NotFound(f"no record {record_id!r}")
-            rec = rows[0]
-            if rec["void"]:
-                raise Conflict(f"record {record_id!r} was already voided at {rec['voided_at']} by "
-                               f"{rec['voided_by']}")
-            conn.execute("UPDATE records SET void = 1, voided_at = ?, voided_by = ?, "
-                         "void_reason = ? WHERE seq = ?", (now, actor[0], reason, rec["seq"]))
-            # a drawn unit whose re-check is voided is again to be re-checked
-            conn.execute("UPDATE draw_units SET record_seq = NULL WHERE record_seq = ?",
-                         (rec["seq"],))
-            append_entry(conn, "void", void_content(rec["seq"], record_id, now, actor[0],
-                                                    reason), now, ref=rec["seq"])
-            fid, number = rec["facility_id"], rec["cycle"]
-            cyc = rows_of(conn.execute("SELECT * FROM cycles WHERE facility_id = ? AND cycle = ?",
-                                     (fid, number)))[0]
-            current = conn.execute("SELECT current_cycle FROM facilities WHERE facility_id = ?",
-                                   (fid,)).fetchone()[0]
-            cyc["_plan"] = plan_of(cyc["plan_json"])
-            before = state_of(cyc)
-            standing = rows_of(conn.execute(
-                "SELECT seq, units, nonconforming, received_at, excluded FROM records WHERE "
-                "facility_id = ? AND cycle = ? AND void = 0 ORDER BY seq", (fid, number)))
-            live = [r for r in standing if r["excluded"] is None]   # excluded: never evidence
-            evidence = [Evidence(r["seq"], r["units"], r["nonconforming"], r["received_at"])
-                        for r in live]
-            state, counted = replay(cyc["_plan"], evidence, stop_seq=cyc["closed_seq"])
-            extra = {}
-            if state.is_open and cyc["closed_seq"] is not None:
-                state = CycleState(status=CLOSED, units=state.units,
-                                   nonconforming=state.nonconforming)
-            elif state.is_open and number < current:
-                state = CycleState(status=CLOSED, units=state.units,
-                                   nonconforming=state.nonconforming)
-                extra = {"closed_at": now, "closed_reason":
-                         f"undecided after a void, and cycle {current} is already open"}
-            conn.executemany("UPDATE records SET counted = ? WHERE seq = ?",
-                             [(int(c), r["seq"]) for c, r in zip(counted, live)])
-            cyc["record_count"] = len(standing)
-            watch_alerts = self._rewatch_after_void(conn, cyc, state, live, number == current,
-                                                    now)
-            self._write_state(conn, cyc, state, extra)
-            self._write_watch(conn, cyc)
-            alerts = void_alerts(fid, number, cyc["plan_name"], cyc["_plan"], before, state,
-                                 record_id, reason)
-            revised = bool(alerts)
-            alert_ids = self._insert_alerts(conn, alerts + watch_alerts, now)
-            self._log(conn, now, actor, "record_voided",
-                      {"record_id": record_id, "reason": reason, "decision_revised": revised},
-                      facility_id=fid, cycle=number, target=record_id)
-        return {"record": self.record(record_id), "revised": revised, "alert_ids": alert_ids}
