@@ -43,6 +43,19 @@ def plan_from_snapshot(snapshot: dict) -> SprtPlan:
 
 
 
+def split_known(known: dict, keys) -> tuple[dict, list]:
+    """(key -> value for the keys ``known`` holds, the other keys in their order): one pass,
+    for caches in front of a query."""
+    found, missing = {}, []
+    for key in keys:
+        value = known.get(key)
+        if value is None:
+            missing.append(key)
+        else:
+            found[key] = value
+    return found, missing
+
+
 def where_in(conn, sql: str, values: list, cursors: bool = False):
     """Rows of ``sql`` (with ``{marks}`` in its IN list) for all ``values``, queried in
     chunks that stay under SQLite's limit on parameters; the cursors if ``cursors``."""

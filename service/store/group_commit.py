@@ -5,8 +5,10 @@ first waits for its turn to write (the store's locks, shared with other server p
 then takes every job that is waiting at that moment, writes them all in one transaction (one
 fsync) and then tells each caller, who is answered only after its records are on disk. Jobs
 that queue while another process writes therefore join the next commit: with several
-processes the batches grow instead of the number of fsyncs. Handlers on the event loop await the commit without a worker thread of their
-own, so a request costs no thread hand-over and the GIL has two contenders, not dozens.
+processes the batches grow instead of the number of fsyncs. Handlers on the event loop
+await the commit without a worker thread of their own, so a request costs no thread
+hand-over and the GIL has two contenders, not dozens. Upkeep (the merge of record ids) runs
+between groups, a transaction at a time, while no job waits.
 """
 from __future__ import annotations
 

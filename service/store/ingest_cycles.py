@@ -3,7 +3,7 @@ new states (by rowid), and the cycles kept between ingest transactions."""
 from __future__ import annotations
 
 from ..monitor import CycleState
-from .common import plan_of, position, where_in
+from .common import plan_of, position, split_known, where_in
 
 
 _STATE_SET = (
@@ -138,13 +138,8 @@ class KeptCycles:
 
     def cycles_for(self, conn, facility_ids: set[str]) -> dict[str, dict]:
         """facility_id -> its current cycle, kept or read (:func:`current_cycles`)."""
-        known, out, missing = self.cycles, {}, []
-        for fid in facility_ids:                # (one pass: as many facilities as records)
-            cyc = known.get(fid)
-            if cyc is None:
-                missing.append(fid)
-            else:
-                out[fid] = cyc
+        known = self.cycles
+        out, missing = split_known(known, facility_ids)     # (as many as the records)
         if missing:
             read = current_cycles(conn, missing)
             if len(known) + len(read) > KEPT_CYCLES:

@@ -15,11 +15,11 @@ all the index's leaves: at 1,000,000 stored records a batch of 1000 dirtied abou
 
 When the tail reaches :data:`MERGE_AT` ids they are merged into ``record_keys`` in id order,
 a slice at a time (:data:`MERGE_SLICE` ids per transaction, one transaction between group
-commits, so writers wait at most one slice): every leaf of the table is then written about once for a tail of ids, not once per
-id. Between the slices, and after a crash in the middle of a merge, some ids are in both
-parts, which is harmless: both name the same ``seq``, and a slice that meets an id already
-merged with the same ``seq`` skips it (another ``seq`` would be two records with one id and
-raises :class:`DuplicateKey`).
+commits, so writers wait at most one slice): every leaf of the table is then written about
+once for a tail of ids, not once per id. Between the slices, and after a crash in the middle
+of a merge, some ids are in both parts, which is harmless: both name the same ``seq``, and a
+slice that meets an id already merged with the same ``seq`` skips it (another ``seq`` would
+be two records with one id and raises :class:`DuplicateKey`).
 
 The unique index's guarantee now comes from the one writer at a time (the store's write
 locks): inside a write transaction, the tail is read up to the newest record first, and the
@@ -27,13 +27,15 @@ ingest checks every id against both parts before it inserts.
 """
 from __future__ import annotations
 
-from .common import rows_of, where_in
+from .common import rows_of, split_known, where_in
 
 # Tail ids that start a merge. A merge writes each leaf of record_keys about once: at 1M
 # stored ids (about 11,000 leaves) that is about 0.1 page per merged id. The tail costs about
 # 150 bytes of memory an id, and a lookup by id that misses record_keys reads the tail's rows.
 MERGE_AT = 128_000
 MERGE_SLICE = 16_000
+
+_KEYS_IN = "SELECT record_id, seq FROM record_keys WHERE record_id IN ({marks})"
 
 # A lookup inside a write transaction (one statement, one snapshot): through record_keys,
 # else through the rows of the tail (at most about MERGE_AT of them).
@@ -81,15 +83,10 @@ class RecentKeys:
                 self.ids = {rid: seq for rid, seq in self.ids.items() if seq > upto}
             self.upto = upto
         self.seen = max(self.seen, upto)
-        newest = self.seen
-        for rid, seq in conn.execute("SELECT record_id, seq FROM records WHERE seq > ?",
-                                     (self.seen,)):
-            self.ids[rid] = seq
-            newest = seq
-        self.seen = newest
+        self.add(conn.execute("SELECT record_id, seq FROM records WHERE seq > ?", (self.seen,)))
 
     def add(self, pairs) -> None:
-        """(record_id, seq) of records this transaction inserted, in seq order."""
+        """(record_id, seq) of records read or inserted by this transaction, in seq order."""
         ids = self.ids
         for rid, seq in pairs:
             ids[rid] = seq
@@ -97,18 +94,20 @@ class RecentKeys:
 
     def seqs(self, conn, record_ids: list[str]) -> dict[str, int]:
         """record_id -> seq of the stored records among ``record_ids``."""
-        found, rest = {}, []
-        ids = self.ids
-        for rid in record_ids:
-            seq = ids.get(rid)
-            if seq is None:
-                rest.append(rid)
-            else:
-                found[rid] = seq
+        found, rest = split_known(self.ids, record_ids)
         if rest:
-            found.update(where_in(conn, "SELECT record_id, seq FROM record_keys WHERE "
-                                        "record_id IN ({marks})", rest))
+            found.update(where_in(conn, _KEYS_IN, rest))
         return found
+
+    def record(self, conn, record_id: str) -> list[dict]:
+        """The stored record with this id (a list of at most one row), caught up first in
+        ``conn``'s transaction, which the caller holds."""
+        self.catch_up(conn)
+        seq = self.seqs(conn, [record_id]).get(record_id)
+        if seq is None:
+            return []
+        return rows_of(conn.execute("SELECT * FROM records WHERE seq = ? AND record_id = ?",
+                                    (seq, record_id)))
 
 
 def merge_slice(conn, pairs: list[tuple[str, int]]) -> int:
@@ -120,8 +119,7 @@ def merge_slice(conn, pairs: list[tuple[str, int]]) -> int:
     inserted = conn.total_changes - before
     if inserted < len(pairs):
         wanted = dict(pairs)
-        for rid, seq in where_in(conn, "SELECT record_id, seq FROM record_keys WHERE "
-                                       "record_id IN ({marks})", list(wanted)):
+        for rid, seq in where_in(conn, _KEYS_IN, list(wanted)):
             if seq != wanted[rid]:
                 raise DuplicateKey(f"record_id {rid!r} is stored as seq {seq} and seq "
                                    f"{wanted[rid]}")
@@ -164,7 +162,7 @@ class RecordKeysMixin:
         with self._writer:
             plan = self.__dict__.get("_merge_plan")
             if plan is None:
-                with self._file_lock, self._begun() as conn:
+                with self._transaction() as conn:
                     recent = RecentKeys.of(self)
                     recent.catch_up(conn)
                     if len(recent.ids) < least:
@@ -173,11 +171,11 @@ class RecordKeysMixin:
                                                               sorted(recent.ids.items()))
                 return True
             if plan.next < len(plan.pending):
-                with self._file_lock, self._begun() as conn:
+                with self._transaction() as conn:
                     merge_slice(conn, plan.pending[plan.next:plan.next + MERGE_SLICE])
                 plan.next += MERGE_SLICE        # only once the slice is committed
                 return True
-            with self._file_lock, self._begun() as conn:
+            with self._transaction() as conn:
                 set_merged(conn, plan.upto)
                 RecentKeys.of(self).catch_up(conn)      # the merged ids leave the tail
             del self.__dict__["_merge_plan"]
@@ -209,19 +207,6 @@ class RecordKeysMixin:
         self.merge_failure = None
         return more
 
-    def _by_id(self, conn, record_id: str) -> list[dict]:
-        """The stored record with this id (a list of at most one row), read in ``conn``'s
-        transaction, which the caller holds."""
-        keys = self.__dict__.get("_reader_keys")
-        if keys is None:
-            keys = self.__dict__["_reader_keys"] = RecentKeys()
-        keys.catch_up(conn)
-        seq = keys.seqs(conn, [record_id]).get(record_id)
-        if seq is None:
-            return []
-        return rows_of(conn.execute("SELECT * FROM records WHERE seq = ? AND record_id = ?",
-                                    (seq, record_id)))
-
     def find_record(self, record_id: str) -> list[dict]:
         """The stored record with this id, as a list of at most one row. Readers keep a tail
         of their own (behind one lock), caught up in the lookup's read transaction: a lookup
@@ -232,8 +217,9 @@ class RecordKeysMixin:
             # them (their seqs would be given to other records), so read the tail's rows
             return rows_of(conn.execute(_SCAN_BY_ID, (record_id,)))
         with self._lookup_lock:
+            keys = self.__dict__.setdefault("_reader_keys", RecentKeys())
             conn.execute("BEGIN")
             try:
-                return self._by_id(conn, record_id)
+                return keys.record(conn, record_id)
             finally:
                 conn.execute("COMMIT")

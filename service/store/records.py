@@ -1,5 +1,5 @@
-"""Inspection records: ingest (group commit), a cycle's records, a record by its id (voids:
-:mod:`.voids`)."""
+"""Inspection records: ingest (group commit), a cycle's records, a record by its id (voids
+are in :mod:`.voids`)."""
 from __future__ import annotations
 
 import operator

@@ -23,11 +23,7 @@ class VoidsMixin:
     def void_record(self, record_id: str, reason: str, now: str, actor) -> dict:
         """Mark a record void and replay its cycle from the records still standing."""
         with self.write() as conn:
-            recent = RecentKeys.of(self)
-            recent.catch_up(conn)
-            seq = recent.seqs(conn, [record_id]).get(record_id)
-            rows = [] if seq is None else rows_of(conn.execute(
-                "SELECT * FROM records WHERE seq = ? AND record_id = ?", (seq, record_id)))
+            rows = RecentKeys.of(self).record(conn, record_id)
             if not rows:
                 raise NotFound(f"no record {record_id!r}")
             rec = rows[0]
