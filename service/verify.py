@@ -103,7 +103,7 @@ def _load(conn) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
 
 def verify_database(store: Store) -> VerifyReport:
     """Replay every cycle of the database and list any whose stored state differs."""
-    cycles = {(c["facility_id"], c["cycle"]): c for c in store.read("SELECT * FROM cycles")}
+    cycles = {(c["facility_id"], c["cycle"]): c for c in store.read("SELECT * FROM cycles_planned")}
     conn = store._conn()
     names = dict(conn.execute("SELECT rowid, facility_id FROM facilities").fetchall())
     group, units, bad, counted = _load(conn)

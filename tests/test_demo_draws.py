@@ -18,7 +18,7 @@ def test_seed_registers_frames_draws_and_drawn_history(tmp_path):
     store = Store(settings.db_path)
     facilities = store.read("SELECT facility_id FROM facilities")
     assert len(facilities) == 30
-    cycles = store.read("SELECT plan_json, status FROM cycles")
+    cycles = store.read("SELECT plan_json, status FROM cycles_planned")
     assert all(json.loads(c["plan_json"])["require_draw"] for c in cycles)
     assert {c["status"] for c in cycles} >= {"monitoring", "flagged", "cleared"}
     frames = store.read("SELECT facility_id, COUNT(*) AS n FROM frames GROUP BY facility_id")

@@ -32,7 +32,7 @@ def check_against_records(store) -> None:
         "SELECT facility_id, cycle, SUM(CASE WHEN counted = 1 THEN units ELSE 0 END) AS n, "
         "SUM(CASE WHEN counted = 1 THEN nonconforming ELSE 0 END) AS d, COUNT(*) AS k "
         "FROM records WHERE void = 0 GROUP BY 1, 2")}
-    for c in store.read("SELECT * FROM cycles"):
+    for c in store.read("SELECT * FROM cycles_planned"):
         ref = sums.get((c["facility_id"], c["cycle"]), {"n": 0, "d": 0, "k": 0})
         assert (c["units"], c["nonconforming"], c["record_count"]) == (
             ref["n"], ref["d"], ref["k"]), c["facility_id"]

@@ -33,7 +33,7 @@ def check(store) -> set:
     kept = {(r["plan"], r["status"]): r["n"] for r in store.read(
         "SELECT plan, status, n FROM facility_counts WHERE n != 0")}
     assert kept == brute_counts(store)
-    for r in store.read("SELECT c.*, f.current_cycle FROM cycles c JOIN facilities f "
+    for r in store.read("SELECT c.*, f.current_cycle FROM cycles_planned c JOIN facilities f "
                         "ON f.facility_id = c.facility_id"):
         assert r["is_current"] == (r["cycle"] == r["current_cycle"])
         snap = json.loads(r["plan_json"])

@@ -9,6 +9,16 @@ from ..stats import MONITORING
 from .common import position
 
 
+def snapshot_ref(conn, snapshot: dict) -> int:
+    """The number of a plan snapshot in ``plan_snapshots``, stored first if it is new (each
+    snapshot's text once, however many cycles use it)."""
+    text = json.dumps(snapshot, sort_keys=True)
+    row = conn.execute("SELECT ref FROM plan_snapshots WHERE plan_json = ?", (text,)).fetchone()
+    if row is not None:
+        return row[0]
+    return conn.execute("INSERT INTO plan_snapshots (plan_json) VALUES (?)", (text,)).lastrowid
+
+
 class FacilitiesMixin:
     def add_facility(self, facility_id: str, name: str, plan_name: str, snapshot: dict,
                      now: str, actor, region: str | None = None) -> None:
@@ -61,16 +71,16 @@ class FacilitiesMixin:
         ``facilities.current_cycle`` at it): the one before stops being current."""
         conn.execute("UPDATE cycles SET is_current = 0 WHERE facility_id = ? AND is_current = 1",
                      (facility_id,))
-        conn.execute("INSERT INTO cycles (facility_id, cycle, plan_name, plan_json, status, units, "
+        conn.execute("INSERT INTO cycles (facility_id, cycle, plan_name, plan_ref, status, units, "
                      "nonconforming, llr, opened_at, at_cap, record_count, is_current, "
                      "llr_position) VALUES (?, ?, ?, ?, ?, 0, 0, 0.0, ?, 0, 0, 1, ?)",
-                     (facility_id, cycle, plan_name, json.dumps(snapshot, sort_keys=True),
+                     (facility_id, cycle, plan_name, snapshot_ref(conn, snapshot),
                       MONITORING, now, position(0.0, snapshot["lower_llr"],
                                                 snapshot["upper_llr"])))
 
     def facility(self, facility_id: str) -> dict:
         rows = self.read("SELECT f.facility_id, f.name, f.plan, f.created_at, f.current_cycle, "
-                         "f.region, c.* FROM facilities f JOIN cycles c ON "
+                         "f.region, c.* FROM facilities f JOIN cycles_planned c ON "
                          "c.facility_id = f.facility_id AND c.cycle = f.current_cycle "
                          "WHERE f.facility_id = ?", (facility_id,))
         if not rows:
@@ -111,13 +121,13 @@ class FacilitiesMixin:
         way = " DESC" if descending else ""
         order = f"{orders[sort]}{way}, c.facility_id{way}" if sort != "facility_id" \
             else f"c.facility_id{way}"
-        base = f"FROM cycles c JOIN facilities f ON f.facility_id = c.facility_id {clause}"
+        base = "FROM {} c JOIN facilities f ON f.facility_id = c.facility_id " + clause
         if search or region is not None:
-            total = self.read(f"SELECT COUNT(*) AS n {base}", params)[0]["n"]
+            total = self.read(f"SELECT COUNT(*) AS n {base.format('cycles')}", params)[0]["n"]
         else:
             total = self._facility_count(status, plan)
         rows = self.read(f"SELECT f.facility_id, f.name, f.plan, f.created_at, f.current_cycle, "
-                         f"f.region, c.* {base} ORDER BY {order} LIMIT ? OFFSET ?",
+                         f"f.region, c.* {base.format('cycles_planned')} ORDER BY {order} LIMIT ? OFFSET ?",
                          [*params, limit, offset])
         return rows, total
 
@@ -129,11 +139,11 @@ class FacilitiesMixin:
                          [v for v in (status, plan) if v is not None])[0]["n"]
 
     def cycles(self, facility_id: str) -> list[dict]:
-        return self.read("SELECT * FROM cycles WHERE facility_id = ? ORDER BY cycle",
+        return self.read("SELECT * FROM cycles_planned WHERE facility_id = ? ORDER BY cycle",
                          (facility_id,))
 
     def cycle(self, facility_id: str, cycle: int) -> dict:
-        rows = self.read("SELECT * FROM cycles WHERE facility_id = ? AND cycle = ?",
+        rows = self.read("SELECT * FROM cycles_planned WHERE facility_id = ? AND cycle = ?",
                          (facility_id, cycle))
         if not rows:
             raise NotFound(f"facility {facility_id!r} has no cycle {cycle}")

@@ -82,7 +82,8 @@ class OutboxMixin:
             return
         fac = _row_dicts(conn.execute(
             "SELECT f.facility_id, f.name, f.plan, c.cycle, c.status, c.units, c.nonconforming, "
-            "c.llr, c.decided_at, c.decided_after_units, c.plan_json FROM facilities f JOIN "
+            "c.llr, c.decided_at, c.decided_after_units, (SELECT p.plan_json FROM plan_snapshots p "
+            "WHERE p.ref = c.plan_ref) AS plan_json FROM facilities f JOIN "
             "cycles c ON c.facility_id = f.facility_id AND c.cycle = ? WHERE f.facility_id = ?",
             (cycle, facility_id)))
         state = fac[0] if fac else {}

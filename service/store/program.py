@@ -18,7 +18,8 @@ class ProgramMixin:
             where += " AND f.region = ?"
             params.append(region)
         return self._conn().execute(
-            "SELECT f.facility_id, f.name, f.plan, f.region, c.cycle, c.plan_json, c.units, "
+            "SELECT f.facility_id, f.name, f.plan, f.region, c.cycle, "
+            "(SELECT p.plan_json FROM plan_snapshots p WHERE p.ref = c.plan_ref), c.units, "
             "c.nonconforming, c.opened_at, c.last_record_at, c.record_count, "
             "COALESCE(c.last_record_at, c.opened_at) "
             # CROSS JOIN keeps SQLite's join order: facilities in key order (no sort),

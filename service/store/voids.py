@@ -38,7 +38,7 @@ class VoidsMixin:
             append_entry(conn, "void", void_content(rec["seq"], record_id, now, actor[0],
                                                     reason), now, ref=rec["seq"])
             fid, number = rec["facility_id"], rec["cycle"]
-            cyc = rows_of(conn.execute("SELECT * FROM cycles WHERE facility_id = ? AND cycle = ?",
+            cyc = rows_of(conn.execute("SELECT * FROM cycles_planned WHERE facility_id = ? AND cycle = ?",
                                      (fid, number)))[0]
             current = conn.execute("SELECT current_cycle FROM facilities WHERE facility_id = ?",
                                    (fid,)).fetchone()[0]

@@ -109,7 +109,7 @@ class WatchMixin:
 
     @staticmethod
     def _cycle_row(conn, facility_id: str, cycle: int) -> dict:
-        cur = conn.execute("SELECT * FROM cycles WHERE facility_id = ? AND cycle = ?",
+        cur = conn.execute("SELECT * FROM cycles_planned WHERE facility_id = ? AND cycle = ?",
                            (facility_id, cycle))
         names = [c[0] for c in cur.description]
         return dict(zip(names, cur.fetchone()))
@@ -117,7 +117,7 @@ class WatchMixin:
     def watch_path(self, facility_id: str, cycle: int) -> dict | None:
         """The chart of a cleared cycle replayed from its post-decision records: the value
         after each record charted (with its seq), the limit, and the stored state."""
-        rows = self.read("SELECT * FROM cycles WHERE facility_id = ? AND cycle = ?",
+        rows = self.read("SELECT * FROM cycles_planned WHERE facility_id = ? AND cycle = ?",
                          (facility_id, cycle))
         if not rows or rows[0]["watch_state"] is None:
             return None
