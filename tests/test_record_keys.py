@@ -5,6 +5,7 @@ same id with the same content is a retry, with other content a conflict). Merges
 small (a few ids, slices of a few) so that a seeded walk crosses many of them, including ids
 posted again while they sit in the tail, in record_keys, or in both (between slices).
 """
+import json
 import sqlite3
 import threading
 import time
@@ -228,9 +229,15 @@ def test_migration_moves_the_ids_of_an_older_file(tmp_path, monkeypatch):
     record_keys and the index dropped; its records are then found and retries recognised."""
     from service.store import migrations
     db = tmp_path / "old.db"
-    monkeypatch.setattr(migrations, "MIGRATIONS", MIGRATIONS[:-1])
+    monkeypatch.setattr(migrations, "MIGRATIONS", MIGRATIONS[:11])   # as of v11
     m = monitor(db)
-    register(m)
+    with m.store.write() as w:          # the facility as that version stored it
+        w.execute("INSERT INTO facilities (facility_id, name, plan, created_at, current_cycle) "
+                  "VALUES ('RK-1', 'RK-1', 'dispensers', '2026-11-30T09:00:00.000000Z', 1)")
+        w.execute("INSERT INTO cycles (facility_id, cycle, plan_name, plan_json, status, "
+                  "opened_at, is_current, llr_position) VALUES ('RK-1', 1, 'dispensers', ?, "
+                  "'monitoring', '2026-11-30T09:00:00.000000Z', 1, 0.5)",
+                  (json.dumps(m.plans.snapshot("dispensers"), sort_keys=True),))
     rows = [(k + 1, f"old-{k}", "RK-1", 1, "2026-11-30T09:15:00Z",
              "2026-11-30T09:15:00.000000Z", "2026-11-30T09:16:00.000000Z", 1, k % 2, 1, 0)
             for k in range(50)]

@@ -103,3 +103,52 @@ def test_none_is_stored_as_null_and_empty_text_as_text(tmp_path):
         "typeof(key_label) FROM records ORDER BY seq").fetchall()
     assert rows == [("a", "null", "null", "null", "text"), ("b", "text", "text", "text", "text")]
     assert sqlite3.connect(":memory:").execute("SELECT ? IS NULL", (None,)).fetchone() == (1,)
+
+
+def test_v13_keeps_each_plan_snapshot_once_and_every_cycle_its_own(tmp_path):
+    """A file at v12 (each cycle row carrying its snapshot's text) gets one row per distinct
+    snapshot in plan_snapshots; every cycle reads back the same text through cycles_planned,
+    and ingest and the listing still work on the migrated file."""
+    db = tmp_path / "v12.db"
+    conn = sqlite3.connect(db, isolation_level=None)
+    old = sqlite_utils.Database(conn)
+    old.execute("CREATE TABLE schema_version (version INTEGER NOT NULL)")
+    for number, step in enumerate(MIGRATIONS[:12], start=1):   # the schema as of v12
+        step(old)
+        old.execute("INSERT INTO schema_version (version) VALUES (?)", [number])
+    plans = PlanBook(load_settings(db_path=db).plans)
+    texts = {name: json.dumps(plans.snapshot(name), sort_keys=True)
+             for name in ("dispensers", "scales")}
+    rows = [("S-1", 1, "dispensers", "cleared", 0), ("S-1", 2, "dispensers", "monitoring", 1),
+            ("S-2", 1, "scales", "monitoring", 1), ("S-3", 1, "dispensers", "flagged", 1)]
+    for fid, cycle, plan, status, current in rows:
+        if current:
+            old.execute("INSERT INTO facilities (facility_id, name, plan, created_at, "
+                        "current_cycle) VALUES (?, ?, ?, '2026-11-01T00:00:00.000000Z', ?)",
+                        [fid, f"agency {fid}", plan, cycle])
+        old.execute("INSERT INTO cycles (facility_id, cycle, plan_name, plan_json, status, "
+                    "opened_at, is_current, llr_position) VALUES (?, ?, ?, ?, ?, "
+                    "'2026-11-01T00:00:00.000000Z', ?, 0.4)",
+                    [fid, cycle, plan, texts[plan], status, current])
+    conn.close()
+
+    m = _monitor(db)
+    assert m.store.migrate() == len(MIGRATIONS)
+    assert "plan_json" not in _columns(db, "cycles")
+    snapshots = m.store.read("SELECT ref, plan_json FROM plan_snapshots ORDER BY ref")
+    assert [s["plan_json"] for s in snapshots] == [texts["dispensers"], texts["scales"]]
+    got = {(c["facility_id"], c["cycle"]): c["plan_json"]
+           for c in m.store.read("SELECT facility_id, cycle, plan_json FROM cycles_planned")}
+    assert got == {(fid, cycle): texts[plan] for fid, cycle, plan, _, _ in rows}
+
+    code, body = m.post_records({"record_id": "after-v13", "facility_id": "S-1", "units": 1,
+                                 "nonconforming": 1, "observed_at": "2026-11-30T09:00:00Z"},
+                                ACTOR, with_state=False)
+    assert (code, body["status"]) == (201, "accepted")
+    assert (m.store.facility("S-1")["cycle"], m.store.facility("S-1")["units"]) == (2, 1)
+    listed, total = m.store.facilities(sort="llr_position")
+    assert total == 3 and {r["plan_json"] for r in listed} == set(texts.values())
+    # a new facility on a plan already stored adds no snapshot; a new cycle neither
+    m.store.add_facility("S-4", "agency S-4", "scales", plans.snapshot("scales"),
+                         "2026-12-01T08:00:00.000000Z", ("test", "admin"))
+    assert len(m.store.read("SELECT ref FROM plan_snapshots")) == 2
