@@ -116,8 +116,8 @@ def test_a_failed_job_drops_the_kept_cycles(tmp_path, monkeypatch):
     keep = KeptCycles.keep
     failures = []
 
-    def failing(kept, conn, touched):
-        keep(kept, conn, touched)
+    def failing(kept, conn):
+        keep(kept, conn)
         if not failures:
             failures.append(1)
             raise RuntimeError("disk gone at commit")

@@ -2,6 +2,8 @@
 new states (by rowid), and the cycles kept between ingest transactions."""
 from __future__ import annotations
 
+import operator
+
 from ..monitor import CycleState
 from .common import plan_of, position, split_known, where_in
 
@@ -58,24 +60,39 @@ def rowid_of(conn, cyc: dict) -> int:
     return rowid
 
 
-def cycle_writes(conn, cycles: list[dict]) -> tuple[list[tuple], list[tuple]]:
+def cycle_writes(conn, cycles: list[dict], kept: "KeptCycles") -> tuple[list[tuple], list[tuple]]:
     """The parameters of UPDATE_COUNTS_AT for the cycles whose status stayed and of
-    UPDATE_STATE_AT for the others, in one pass (a batch spread over 1000 facilities
-    touches 1000 cycles: each further pass over them costs about 0.1 us a record)."""
+    UPDATE_STATE_AT for the others, in one pass that also does :meth:`KeptCycles.keep`'s
+    work for each cycle (a batch spread over 1000 facilities touches 1000 cycles: each
+    further pass over them costs about 0.1-0.2 us a record). The LLR and its position are
+    ``SprtPlan.llr``'s and :func:`position`'s arithmetic, written out."""
     counts, states = [], []
+    known = kept.cycles
     for cyc in cycles:
-        plan, state = cyc["_plan"], cyc["_state"]
+        plan, state, fid = cyc["_plan"], cyc["_state"], cyc["facility_id"]
         rowid = cyc.get("_rowid")
         if rowid is None:
             rowid = rowid_of(conn, cyc)
         if state.status == cyc["status"]:
-            llr = float(plan.llr(state.units, state.nonconforming))
-            counts.append((state.units, state.nonconforming, llr,
-                           position(llr, plan.lower_llr, plan.upper_llr),
+            n, d = state.units, state.nonconforming
+            llr = float(d * plan.g12 - n * plan.g2)
+            lower = plan.lower_llr
+            counts.append((n, d, llr, (llr - lower) / (plan.upper_llr - lower),
                            cyc["last_record_at"], cyc["record_count"], rowid))
+            # kept as a read would give it again, unless its watch chart changed or it is
+            # not the kept one (opened in this job, after a signal)
+            if "_watch_dirty" in cyc or known.get(fid) is not cyc:
+                known.pop(fid, None)
+            else:
+                cyc["units"], cyc["nonconforming"] = n, d
         else:
             states.append(state_row(cyc, state)[:-2] + (rowid,))
+            known.pop(fid, None)        # its status changed: read again
+    counts.sort(key=_ROWID)             # the table's order: each row near the last one
     return counts, states
+
+
+_ROWID = operator.itemgetter(-1)
 
 
 def current_cycles(conn, facility_ids: list[str]) -> dict[str, dict]:
@@ -140,7 +157,11 @@ class KeptCycles:
     def cycles_for(self, conn, facility_ids: set[str]) -> dict[str, dict]:
         """facility_id -> its current cycle, kept or read (:func:`current_cycles`)."""
         known = self.cycles
-        out, missing = split_known(known, facility_ids)     # (as many as the records)
+        try:                    # the common case once warm: every one kept (one C-level pass)
+            return {fid: known[fid] for fid in facility_ids}
+        except KeyError:
+            pass
+        out, missing = split_known(known, facility_ids)
         if missing:
             read = current_cycles(conn, missing)
             if len(known) + len(read) > KEPT_CYCLES:
@@ -149,15 +170,7 @@ class KeptCycles:
             out.update(read)
         return out
 
-    def keep(self, conn, touched: list[dict]) -> None:
-        """After a job's writes: its cycles become what a read would give again, except
-        those whose status or watch chart changed or that a signal replaced (read again)."""
-        known = self.cycles
-        for cyc in touched:
-            state = cyc["_state"]
-            if state.status != cyc["status"] or "_watch_dirty" in cyc or "_rowid" not in cyc \
-                    or known.get(cyc["facility_id"]) is not cyc:
-                known.pop(cyc["facility_id"], None)
-            else:
-                cyc["units"], cyc["nonconforming"] = state.units, state.nonconforming
+    def keep(self, conn) -> None:
+        """After a job's writes (:func:`cycle_writes` kept or dropped each of its cycles):
+        what is kept is what a read would give again, from now on."""
         self.mark = self._mark(conn)

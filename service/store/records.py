@@ -264,7 +264,7 @@ class RecordsMixin:
         if inserts:
             append_records(conn, trail_n, trail_prev, list(map(_TRAIL_ROW, inserts)), now)
         # the cycles' new states: one statement for all whose status stayed, one for the rest
-        counts, states = cycle_writes(conn, touched)
+        counts, states = cycle_writes(conn, touched, kept)
         conn.executemany(UPDATE_COUNTS_AT, counts)
         if states:
             conn.executemany(UPDATE_STATE_AT, states)
@@ -280,7 +280,7 @@ class RecordsMixin:
         self._bump(conn, "records_accepted", len(inserts))
         self._bump(conn, "records_duplicate", duplicates)
         self._bump(conn, "records_rejected", rejected + job.rejected_before)
-        kept.keep(conn, touched)
+        kept.keep(conn)
         return outcomes
 
     @staticmethod
