@@ -257,6 +257,7 @@ def _hammer(url: str, path: str, key: str, count: int, concurrency: int, tag: st
 def _client_main(conn, cpus) -> None:
     if cpus is not None:
         os.sched_setaffinity(0, cpus)
+    conn.send("ready")
     while True:
         job = conn.recv()
         if job is None:
@@ -275,6 +276,10 @@ class Client:
         self._conn, child = ctx.Pipe()
         self._proc = ctx.Process(target=_client_main, args=(child, CLIENT_CPUS), daemon=True)
         self._proc.start()
+        # its start-up (imports, on the CPU the in-process sections use) must be over before
+        # any section is timed
+        if self._conn.recv() != "ready":
+            raise RuntimeError("the load generator did not start")
 
     def run(self, url: str, path: str, key: str, count: int, concurrency: int,
             tag: str) -> dict:

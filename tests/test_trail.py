@@ -238,7 +238,9 @@ def _previous_copy(src, dst):
     for (table,) in con.execute("SELECT name FROM main.sqlite_master WHERE type = 'table' "
                                 "AND name != 'schema_version'").fetchall():
         names = ", ".join(r[1] for r in con.execute(f"PRAGMA main.table_info({table})"))
-        con.execute(f"INSERT INTO main.{table} ({names}) SELECT {names} FROM src.{table}")
+        # cycles then carried their plan snapshot's text, as cycles_planned shows it now
+        source = "cycles_planned" if table == "cycles" else table
+        con.execute(f"INSERT INTO main.{table} ({names}) SELECT {names} FROM src.{source}")
     con.execute("DETACH DATABASE src")
     con.close()
 
