@@ -276,6 +276,7 @@ class Client:
         self._conn, child = ctx.Pipe()
         self._proc = ctx.Process(target=_client_main, args=(child, CLIENT_CPUS), daemon=True)
         self._proc.start()
+        child.close()       # (so that a child that dies is an EOFError here, not a hang)
         # its start-up (imports, on the CPU the in-process sections use) must be over before
         # any section is timed
         if self._conn.recv() != "ready":

@@ -7,6 +7,7 @@ the stored columns.
 import json
 import sqlite3
 
+import pytest
 import sqlite_utils
 
 from service.operations import Monitor, PlanBook
@@ -152,3 +153,22 @@ def test_v13_keeps_each_plan_snapshot_once_and_every_cycle_its_own(tmp_path):
     m.store.add_facility("S-4", "agency S-4", "scales", plans.snapshot("scales"),
                          "2026-12-01T08:00:00.000000Z", ("test", "admin"))
     assert len(m.store.read("SELECT ref FROM plan_snapshots")) == 2
+
+
+
+def test_a_cycle_without_a_stored_plan_snapshot_is_refused(tmp_path):
+    """cycles_planned joins each cycle to its snapshot: a cycle with no snapshot (or one
+    that does not exist) would vanish from it, so the schema refuses such a row."""
+    m = _monitor(tmp_path / "ref.db")
+    m.store.migrate()
+    m.store.add_facility("R-1", "Quayside Fuel Services", "dispensers",
+                         m.plans.snapshot("dispensers"), "2026-11-01T00:00:00.000000Z",
+                         ("test", "admin"))
+    insert = ("INSERT INTO cycles (facility_id, cycle, plan_name, plan_ref, status, opened_at) "
+              "VALUES ('R-1', 2, 'dispensers', ?, 'monitoring', '2026-11-02T00:00:00Z')")
+    for ref in (None, 999):
+        with pytest.raises(sqlite3.IntegrityError, match="plan_ref"), m.store.write() as w:
+            w.execute(insert, (ref,))
+    with pytest.raises(sqlite3.IntegrityError, match="plan_ref"), m.store.write() as w:
+        w.execute("UPDATE cycles SET plan_ref = NULL WHERE facility_id = 'R-1'")
+    assert [c["cycle"] for c in m.store.read("SELECT cycle FROM cycles_planned")] == [1]

@@ -31,8 +31,9 @@ UPDATE_COUNTS_AT = (
 _CYCLE_COLUMNS = ("status", "units", "nonconforming", "decided_seq", "decided_after_units",
                   "decided_at", "at_cap", "facility_id", "cycle", "plan_name", "plan_json",
                   "opened_at", "record_count", "watch_state", "_rowid")
-_CURRENT_CYCLES = ("SELECT " + ", ".join(_CYCLE_COLUMNS[:-1]).replace(
-    "plan_json", "(SELECT p.plan_json FROM plan_snapshots p WHERE p.ref = plan_ref)")
+_CURRENT_CYCLES = ("SELECT " + ", ".join(
+    "(SELECT p.plan_json FROM plan_snapshots p WHERE p.ref = plan_ref)" if name == "plan_json"
+    else name for name in _CYCLE_COLUMNS[:-1])
     + ", rowid FROM cycles WHERE is_current = 1 AND facility_id IN ({marks})")
 _WATCH_COLUMNS = ("watch_value", "watch_units", "watch_nonconforming", "watch_peak",
                   "watch_signal_seq", "watch_signal_at")

@@ -233,6 +233,13 @@ def _v13(db: sqlite_utils.Database) -> None:
     db.execute("ALTER TABLE cycles DROP COLUMN plan_json")
     db.execute("CREATE VIEW cycles_planned AS SELECT c.*, p.plan_json FROM cycles c "
                "JOIN plan_snapshots p ON p.ref = c.plan_ref")
+    # a cycle without its snapshot would drop out of the view (ALTER TABLE cannot add the
+    # column as NOT NULL without a default)
+    for event in ("INSERT", "UPDATE OF plan_ref"):
+        db.execute(f"CREATE TRIGGER cycles_plan_ref_{event.split()[0].lower()} BEFORE {event} "
+                   "ON cycles WHEN NEW.plan_ref IS NULL OR NOT EXISTS (SELECT 1 FROM "
+                   "plan_snapshots p WHERE p.ref = NEW.plan_ref) BEGIN SELECT RAISE(ABORT, "
+                   "'a cycle needs the number of a stored plan snapshot (plan_ref)'); END")
 
 
 MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8, _v9, _v10, _v11, _v12, _v13]
