@@ -8,6 +8,7 @@ import sys
 from pathlib import Path
 
 from .commands.plan import CHART_FORMATS  # plain Python: no numpy at parse time
+from .errors import SchemaTooNew
 
 DEFAULT_CONFIG = Path(__file__).resolve().parent.parent / "config" / "seqaudit.toml"
 
@@ -527,6 +528,9 @@ def main(argv: list[str] | None = None) -> int:
         return args.func(args, _leaf_parser(parser, argv))
     except BrokenPipeError:  # e.g. piped into head
         return 0
+    except SchemaTooNew as exc:
+        print(f"seqaudit: {exc}", file=sys.stderr)
+        return 2
 
 
 if __name__ == "__main__":

@@ -63,3 +63,8 @@ class Unavailable(ServiceError):
         super().__init__(detail, **extra)
         self.slug = slug
         self.retry_after_s = retry_after_s
+
+
+class SchemaTooNew(RuntimeError):
+    """The database file was written by a newer seqaudit: this build would misread it (not
+    a request's fault, so not a ServiceError)."""

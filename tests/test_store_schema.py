@@ -10,6 +10,8 @@ import sqlite3
 import pytest
 import sqlite_utils
 
+from service.cli import main as cli_main
+from service.errors import SchemaTooNew
 from service.operations import Monitor, PlanBook
 from service.settings import load_settings
 from service.store import Store
@@ -172,3 +174,17 @@ def test_a_cycle_without_a_stored_plan_snapshot_is_refused(tmp_path):
     with pytest.raises(sqlite3.IntegrityError, match="plan_ref"), m.store.write() as w:
         w.execute("UPDATE cycles SET plan_ref = NULL WHERE facility_id = 'R-1'")
     assert [c["cycle"] for c in m.store.read("SELECT cycle FROM cycles_planned")] == [1]
+
+
+def test_a_database_from_a_newer_build_is_refused_with_a_clear_message(tmp_path, capsys):
+    db = tmp_path / "newer.db"
+    store = Store(db)
+    store.migrate()
+    with store.write() as w:      # as a later build with one more migration would leave it
+        w.execute("INSERT INTO schema_version (version) VALUES (?)", [len(MIGRATIONS) + 1])
+    with pytest.raises(SchemaTooNew, match=f"schema version {len(MIGRATIONS) + 1}"):
+        store.migrate()
+    store.close()
+    assert cli_main(["verify", "--db", str(db)]) == 2
+    err = capsys.readouterr().err
+    assert "newer than this build of seqaudit knows" in err and "Traceback" not in err

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import sqlite_utils
 
+from ..errors import SchemaTooNew
+
 
 def _v1(db: sqlite_utils.Database) -> None:
     db["keys"].create({"id": int, "label": str, "role": str, "key_hash": str, "prefix": str,
@@ -246,10 +248,17 @@ MIGRATIONS = [_v1, _v2, _v3, _v4, _v5, _v6, _v7, _v8, _v9, _v10, _v11, _v12, _v1
 
 
 def migrate(db: sqlite_utils.Database) -> int:
-    """Apply the migrations not yet applied; the caller holds a write transaction."""
+    """Apply the migrations not yet applied; the caller holds a write transaction.
+
+    Raises :class:`SchemaTooNew` for a file whose schema is newer than this build knows
+    (an older build would fail on it query by query, or write rows a newer one misreads)."""
     db.execute("CREATE TABLE IF NOT EXISTS schema_version (version INTEGER NOT NULL)")
     row = db.execute("SELECT MAX(version) FROM schema_version").fetchone()
     current = row[0] or 0
+    if current > len(MIGRATIONS):
+        raise SchemaTooNew(f"the database is at schema version {current}, newer than this "
+                           f"build of seqaudit knows ({len(MIGRATIONS)}); run the newer "
+                           "build, or restore a backup made before it")
     for number, step in enumerate(MIGRATIONS, start=1):
         if number > current:
             step(db)
