@@ -11,6 +11,7 @@ import pytest
 import sqlite_utils
 
 from service.cli import main as cli_main
+from service.commands.serve import check_database
 from service.errors import SchemaTooNew
 from service.operations import Monitor, PlanBook
 from service.settings import load_settings
@@ -188,3 +189,5 @@ def test_a_database_from_a_newer_build_is_refused_with_a_clear_message(tmp_path,
     assert cli_main(["verify", "--db", str(db)]) == 2
     err = capsys.readouterr().err
     assert "newer than this build of seqaudit knows" in err and "Traceback" not in err
+    # serve checks the file before any worker starts, and says the same
+    assert "newer than this build" in check_database(load_settings(db_path=db))

@@ -21,6 +21,7 @@ def check_database(settings: Settings) -> str | None:
     (once, before workers start) and not being restored."""
     import sqlite3
 
+    from ..errors import SchemaTooNew
     from ..inuse import InUse, hold_shared
     from ..store import Store
     try:
@@ -30,7 +31,7 @@ def check_database(settings: Settings) -> str | None:
             store.migrate()
         finally:
             store.close()
-    except InUse as exc:
+    except (InUse, SchemaTooNew) as exc:
         return str(exc)
     except (sqlite3.Error, OSError) as exc:
         return f"cannot open the database {settings.db_path}: {exc}"
