@@ -17,6 +17,8 @@ from service.settings import load_settings
 from service.store import Store
 from service.store.migrations import MIGRATIONS, migrate
 
+from .old_schema import database_at
+
 ACTOR = ("test", "admin")
 
 
@@ -91,12 +93,7 @@ def test_counts_and_positions_follow_every_change(tmp_path):
 
 def test_migration_fills_counts_and_positions(tmp_path):
     db = tmp_path / "old.db"
-    conn = sqlite3.connect(db, isolation_level=None)
-    old = sqlite_utils.Database(conn)
-    old.execute("CREATE TABLE schema_version (version INTEGER NOT NULL)")
-    for number, step in enumerate(MIGRATIONS[:10], start=1):   # the schema as of v10
-        step(old)
-        old.execute("INSERT INTO schema_version (version) VALUES (?)", [number])
+    old = database_at(db, 10)                # the schema as of v10
     snap = json.dumps({"p0": 0.02, "p1": 0.08, "alpha": 0.05, "beta": 0.1, "upper_llr": 2.0,
                        "lower_llr": -1.0, "max_units": None, "cut_llr": 0.0})
     for k, (plan, cycles, status) in enumerate([("dispensers", 1, "monitoring"),
@@ -109,7 +106,7 @@ def test_migration_fills_counts_and_positions(tmp_path):
                         "units, nonconforming, llr, opened_at, record_count) VALUES "
                         "(?, ?, ?, ?, ?, 3, 1, ?, 't', 3)",
                         [f"M{k}", c, plan, snap, "cleared" if c < cycles else status, 0.5 * k])
-    conn.close()
+    old.conn.close()
     assert migrate(sqlite_utils.Database(sqlite3.connect(db, isolation_level=None))) \
         == len(MIGRATIONS)
     store = Store(db)

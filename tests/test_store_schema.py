@@ -18,6 +18,8 @@ from service.settings import load_settings
 from service.store import Store
 from service.store.migrations import MIGRATIONS, migrate
 
+from .old_schema import database_at
+
 ACTOR = ("test", "field")
 
 
@@ -42,13 +44,7 @@ def test_a_fresh_database_has_every_migration_once(tmp_path):
 
 def test_records_written_before_v4_survive_and_still_deduplicate(tmp_path):
     db = tmp_path / "old.db"
-    conn = sqlite3.connect(db, isolation_level=None)
-    old = sqlite_utils.Database(conn)
-    old.execute("CREATE TABLE schema_version (version INTEGER NOT NULL)")
-    for number, step in enumerate(MIGRATIONS[:3], start=1):   # the schema as of v3
-        step(old)
-        old.execute("INSERT INTO schema_version (version) VALUES (?)", [number])
-    conn.close()
+    database_at(db, 3).conn.close()          # the schema as of v3
     m = _monitor(db)
     snapshot = m.plans.snapshot("dispensers")
     with m.store.write() as w:   # a facility and a record as the v3 code stored them
@@ -114,12 +110,7 @@ def test_v13_keeps_each_plan_snapshot_once_and_every_cycle_its_own(tmp_path):
     snapshot in plan_snapshots; every cycle reads back the same text through cycles_planned,
     and ingest and the listing still work on the migrated file."""
     db = tmp_path / "v12.db"
-    conn = sqlite3.connect(db, isolation_level=None)
-    old = sqlite_utils.Database(conn)
-    old.execute("CREATE TABLE schema_version (version INTEGER NOT NULL)")
-    for number, step in enumerate(MIGRATIONS[:12], start=1):   # the schema as of v12
-        step(old)
-        old.execute("INSERT INTO schema_version (version) VALUES (?)", [number])
+    old = database_at(db, 12)                # the schema as of v12
     plans = PlanBook(load_settings(db_path=db).plans)
     texts = {name: json.dumps(plans.snapshot(name), sort_keys=True)
              for name in ("dispensers", "scales")}
@@ -134,7 +125,7 @@ def test_v13_keeps_each_plan_snapshot_once_and_every_cycle_its_own(tmp_path):
                     "opened_at, is_current, llr_position) VALUES (?, ?, ?, ?, ?, "
                     "'2026-11-01T00:00:00.000000Z', ?, 0.4)",
                     [fid, cycle, plan, texts[plan], status, current])
-    conn.close()
+    old.conn.close()
 
     m = _monitor(db)
     assert m.store.migrate() == len(MIGRATIONS)

@@ -15,7 +15,6 @@ from pathlib import Path
 
 import pypdf
 import pytest
-import sqlite_utils
 
 from service.store import Store
 from service.store.group_commit import Job
@@ -23,6 +22,7 @@ from service.store.migrations import MIGRATIONS
 from service.trail_check import check_trail
 
 from .conftest import new_facility, record
+from .old_schema import database_at
 from .test_cli_service import run
 
 RECORD_FIELDS = ["cycle", "draw_id", "draw_order", "excluded", "facility_id", "inspector",
@@ -228,12 +228,7 @@ TRAIL_VERSION = next(i for i, step in enumerate(MIGRATIONS, start=1)
 def _previous_copy(src, dst):
     """A database as the previous version left it: the schema of the migrations before the
     trail's, holding today's rows (the previous code wrote the same rows)."""
-    con = sqlite3.connect(dst, isolation_level=None)
-    old = sqlite_utils.Database(con)
-    old.execute("CREATE TABLE schema_version (version INTEGER NOT NULL)")
-    for number, step in enumerate(MIGRATIONS[:TRAIL_VERSION - 1], start=1):
-        step(old)
-        old.execute("INSERT INTO schema_version (version) VALUES (?)", [number])
+    con = database_at(dst, TRAIL_VERSION - 1).conn
     con.execute("ATTACH DATABASE ? AS src", (str(src),))
     for (table,) in con.execute("SELECT name FROM main.sqlite_master WHERE type = 'table' "
                                 "AND name != 'schema_version'").fetchall():

@@ -1,14 +1,12 @@
 """Alert triage: which alerts need review (pure rule), the API filter, the dashboard queue that
 keeps its filters after an action, and acknowledging the selected alerts at once (CSRF)."""
-import sqlite3
 from urllib.parse import parse_qs, urlsplit
-
-import sqlite_utils
 
 from service.alerting import INFORMATIONAL, NEEDS_REVIEW, needs_review
 from service.store.migrations import MIGRATIONS, migrate
 
 from .conftest import new_facility, record
+from .old_schema import database_at
 from .test_ui_pages import ui  # noqa: F401  (the signed-in dashboard client)
 
 
@@ -109,16 +107,11 @@ def test_bulk_acknowledge_needs_csrf_and_takes_one_note(ui, client, keys):
 
 def test_alerts_before_the_flag_existed_are_backfilled(tmp_path):
     db = tmp_path / "old.db"
-    conn = sqlite3.connect(db, isolation_level=None)
-    old = sqlite_utils.Database(conn)
-    old.execute("CREATE TABLE schema_version (version INTEGER NOT NULL)")
     before = MIGRATIONS.index(next(f for f in MIGRATIONS if "needs_review" in (f.__doc__ or "")))
-    for number, step in enumerate(MIGRATIONS[:before], start=1):
-        step(old)
-        old.execute("INSERT INTO schema_version (version) VALUES (?)", [number])
+    old = database_at(db, before)
     for kind in ("flagged", "cleared", "cap_reached", "stale"):
         old.execute("INSERT INTO alerts (kind, facility_id, cycle, created_at, state, detail) "
                     "VALUES (?, 'X', 1, '2026-01-01T00:00:00Z', 'open', '{}')", [kind])
     migrate(old)
-    got = dict(conn.execute("SELECT kind, needs_review FROM alerts").fetchall())
+    got = dict(old.conn.execute("SELECT kind, needs_review FROM alerts").fetchall())
     assert got == {k: int(needs_review(k)) for k in ("flagged", "cleared", "cap_reached", "stale")}

@@ -65,8 +65,7 @@ def cycle_writes(conn, cycles: list[dict], kept: "KeptCycles") -> tuple[list[tup
     """The parameters of UPDATE_COUNTS_AT for the cycles whose status stayed and of
     UPDATE_STATE_AT for the others, in one pass that also does :meth:`KeptCycles.keep`'s
     work for each cycle (a batch spread over 1000 facilities touches 1000 cycles: each
-    further pass over them costs about 0.1-0.2 us a record). The LLR and its position are
-    ``SprtPlan.llr``'s and :func:`position`'s arithmetic, written out."""
+    further pass over them costs about 0.1-0.2 us a record)."""
     counts, states = [], []
     known = kept.cycles
     for cyc in cycles:
@@ -76,9 +75,8 @@ def cycle_writes(conn, cycles: list[dict], kept: "KeptCycles") -> tuple[list[tup
             rowid = rowid_of(conn, cyc)
         if state.status == cyc["status"]:
             n, d = state.units, state.nonconforming
-            llr = float(d * plan.g12 - n * plan.g2)
-            lower = plan.lower_llr
-            counts.append((n, d, llr, (llr - lower) / (plan.upper_llr - lower),
+            llr = float(plan.llr(n, d))
+            counts.append((n, d, llr, position(llr, plan.lower_llr, plan.upper_llr),
                            cyc["last_record_at"], cyc["record_count"], rowid))
             # kept as a read would give it again, unless its watch chart changed or it is
             # not the kept one (opened in this job, after a signal)
@@ -158,11 +156,7 @@ class KeptCycles:
     def cycles_for(self, conn, facility_ids: set[str]) -> dict[str, dict]:
         """facility_id -> its current cycle, kept or read (:func:`current_cycles`)."""
         known = self.cycles
-        try:                    # the common case once warm: every one kept (one C-level pass)
-            return {fid: known[fid] for fid in facility_ids}
-        except KeyError:
-            pass
-        out, missing = split_known(known, facility_ids)
+        out, missing = split_known(known, facility_ids)     # (as many as the records)
         if missing:
             read = current_cycles(conn, missing)
             if len(known) + len(read) > KEPT_CYCLES:
