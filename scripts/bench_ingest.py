@@ -22,10 +22,14 @@ this process, pinned with the client, with the server's garbage-collector settin
    with random ids against an empty one, per record over 261,000 posted records (so that two
    merges of the newest ids into record_keys are counted): <= 1.3x; beside it (shown) the
    field app's time-ordered ids (UUID 7) against 1,000,000 earlier ones;
-9. a batch of 1000 records spread over 1000 facilities against one over 10, per record:
-   <= 1.5x;
+9. a batch of 1000 records spread over 1000 facilities against one over 10, per record, in
+   this process (`Monitor.post_records`, no HTTP): <= 1.5x; beside it (shown) the same
+   batches posted over HTTP to a server, as a client sees them;
 10. `GET /v1/facilities` and the dashboard overview (first page, default order) at 100,000
     facilities against 10,000: <= 2x each.
+
+Each run also prints the load average at its start and the time of a fixed Python loop
+before and after it, so that a run on a slowed-down shared host can be told apart.
 
 Run: .venv/bin/python scripts/bench_ingest.py [--quick] [--runs N] [--only SECTION ...]
 Prints each run's figures and ratios, one JSON line per run, then each target's spread over
@@ -366,6 +370,20 @@ def cpu_busy(cpus: set[int] | None) -> tuple[int, int]:
     return busy, total
 
 
+def probe_ms() -> float:
+    """The best of five timings of a fixed pure-Python loop on this process's CPU: the
+    machine's speed at that moment (other guests of a shared host slow it down without
+    showing in any counter of this one)."""
+    best = float("inf")
+    for _ in range(5):
+        start = time.perf_counter()
+        total = 0
+        for i in range(200_000):
+            total += i * i % 7
+        best = min(best, time.perf_counter() - start)
+    return 1e3 * best
+
+
 def two_workers(folder: Path, config: Path, count: int, concurrency: int,
                 client: Client, rounds: int = 5) -> dict:
     """Single-record ingest against `serve --workers 2` and `--workers 1` (each on its own
@@ -601,9 +619,46 @@ def many_facilities(folder: Path, config: Path, batches: int, rounds: int = 3) -
                 m.post_records(p, ACTOR, with_state=False)
             if r:
                 cost[name].append((time.perf_counter() - start) / (1000 * batches))
+    field = m.store.add_key("field", "bench tablet", "2026-01-01T00:00:00Z")[1]
     m.store.close()
     few, many = min(cost["10"]), min(cost["1000"])
-    return {"ten_us": 1e6 * few, "thousand_us": 1e6 * many, "ratio": many / few}
+    http_cost = _many_over_http(folder / "many.db", config, field, spreads, batches, rounds)
+    few_h, many_h = min(http_cost["10"]), min(http_cost["1000"])
+    return {"ten_us": 1e6 * few, "thousand_us": 1e6 * many, "ratio": many / few,
+            "http_ten_us": 1e6 * few_h, "http_thousand_us": 1e6 * many_h,
+            "http_ratio": many_h / few_h}
+
+
+def _many_over_http(db: Path, config: Path, field: str, spreads: dict, batches: int,
+                    rounds: int) -> dict:
+    """The same two batches posted as a client sends them (JSON over HTTP, field key) to
+    `seqaudit serve` on the same database: per-record cost as the client sees it, request
+    parsing included (shown beside the in-process target, not a target itself)."""
+    port = free_port()
+    proc = start_service(db, config, port)
+    cost = {k: [] for k in spreads}
+    try:
+        wait_up(f"http://127.0.0.1:{port}/healthz", proc)
+        conn = http.client.HTTPConnection("127.0.0.1", port, timeout=300)
+        headers = {"Authorization": f"Bearer {field}", "Content-Type": "application/json"}
+        for r in range(rounds + 1):             # the first round warms up
+            for name, over in spreads.items():
+                payloads = [orjson.dumps({"records": [
+                    body(f"h{name}-{r}-{j}", k, over[k % len(over)]) for k in range(1000)]})
+                    for j in range(batches)]
+                start = time.perf_counter()
+                for p in payloads:
+                    conn.request("POST", "/v1/records", body=p, headers=headers)
+                    got = conn.getresponse()
+                    answer = got.read()
+                    if got.status != 200 or orjson.loads(answer)["accepted"] != 1000:
+                        raise RuntimeError(f"{got.status}: {answer[:300]!r}")
+                if r:
+                    cost[name].append((time.perf_counter() - start) / (1000 * batches))
+        conn.close()
+    finally:
+        stop(proc)
+    return cost
 
 
 def listing(folder: Path, config: Path, sizes=(10_000, 100_000), repeats: int = 15) -> dict:
@@ -826,7 +881,8 @@ SECTIONS = ("single", "batch", "history", "replay", "casefile", "pdf", "workers"
 def one_run(args, folder: Path, config: Path, client: Client) -> dict:
     q, only = args.quick, set(args.only or SECTIONS)
     cf_sizes = [1000, 2000] if q else [10_000, 20_000]
-    res = {}
+    res = {"machine": {"load_at_start": os.getloadavg()[0] if hasattr(os, "getloadavg")
+                       else None, "probe_ms": [probe_ms()]}}
     if "single" in only:
         res["single"] = single_record(folder, config, 400 if q else 2000, args.concurrency,
                                       client)
@@ -853,6 +909,7 @@ def one_run(args, folder: Path, config: Path, client: Client) -> dict:
         res["many"] = many_facilities(folder, config, 2 if q else 5)
     if "listing" in only:
         res["listing"] = listing(folder, config, (1000, 10_000) if q else (10_000, 100_000))
+    res["machine"]["probe_ms"].append(probe_ms())
     return res
 
 
@@ -867,6 +924,10 @@ def verdicts(res: dict) -> dict[str, tuple[float, bool]]:
 
 def print_run(number: int, res: dict) -> None:
     print(f"\nrun {number}: {PINNING}")
+    load, probe = res["machine"]["load_at_start"], res["machine"]["probe_ms"]
+    print(f"  machine: load {'unknown' if load is None else f'{load:.2f}'} at the start; a "
+          f"fixed Python loop took {probe[0]:.1f} ms before the run and {probe[1]:.1f} ms "
+          "after it (the machine's speed: compare runs)")
     s = res.get("single")
     if s:
         print(f"  single-record POST (c={s['concurrency']}): ours {s['ours_rps']:,.0f} req/s; "
@@ -904,7 +965,9 @@ def print_run(number: int, res: dict) -> None:
     m = res.get("many")
     if m:
         print(f"  batch over 10 facilities {m['ten_us']:.1f} us/record, over 1000 "
-              f"{m['thousand_us']:.1f} us/record")
+              f"{m['thousand_us']:.1f} us/record (in process); posted over HTTP "
+              f"{m['http_ten_us']:.1f} and {m['http_thousand_us']:.1f} us/record (ratio "
+              f"{m['http_ratio']:.2f}, not a target)")
     li = res.get("listing")
     if li:
         print("  listing: " + "; ".join(f"{n:,} facilities: API {v['api']:.1f} ms, overview "
