@@ -4,8 +4,7 @@ from __future__ import annotations
 
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, StrictInt, StrictStr, field_validator, \
-    model_validator
+from pydantic import BaseModel, ConfigDict, Field, StrictInt, StrictStr, field_validator
 
 
 Status = Literal["monitoring", "flagged", "cleared", "closed"]
@@ -63,12 +62,14 @@ class RecordCreate(_Strict):
     inspector: StrictStr | None = Field(default=None, max_length=200, pattern=PRINTABLE)
     note: StrictStr | None = Field(default=None, max_length=2000, pattern=NO_NUL)
 
-    @model_validator(mode="after")
-    def _counts(self):
-        if self.nonconforming > self.units:
-            raise ValueError(f"nonconforming ({self.nonconforming}) cannot exceed units "
-                             f"({self.units})")
-        return self
+    @field_validator("nonconforming")
+    @classmethod
+    def _counts(cls, value: int, info):
+        # a field check (units is validated first), so that the error names this field
+        units = info.data.get("units")
+        if units is not None and value > units:
+            raise ValueError(f"nonconforming ({value}) cannot exceed units ({units})")
+        return value
 
 
 class RecordBatchCreate(_Strict):

@@ -98,6 +98,11 @@ def test_bad_observed_at_is_explained_in_words_and_batch_fields_are_indexed(clie
                     headers=keys.header("field"))
     fields = [e["field"] for e in r.json()["results"][1]["errors"]]
     assert fields == ["records[1].nonconforming"]
+    # more nonconforming than units: the same field named, in a batch as alone
+    r = client.post("/v1/records", json={"records": [record(fid, "t-4"), dict(
+        record(fid, "t-5"), units=2, nonconforming=3)]}, headers=keys.header("field"))
+    assert r.json()["results"][1]["errors"] == [
+        {"field": "records[1].nonconforming", "message": "nonconforming (3) cannot exceed units (2)"}]
 
 
 def test_numpy_is_not_imported_for_help_or_bad_arguments():
