@@ -10,7 +10,6 @@ from pathlib import Path
 from .commands.plan import CHART_FORMATS  # plain Python: no numpy at parse time
 from .errors import SchemaTooNew
 
-DEFAULT_CONFIG = Path(__file__).resolve().parent.parent / "config" / "seqaudit.toml"
 
 
 class _Parser(argparse.ArgumentParser):
@@ -80,7 +79,9 @@ def _add_plan(sub) -> None:
 
 def _add_plans(sub) -> None:
     p = sub.add_parser("plans", help="print the report of every plan in the configuration")
-    p.add_argument("--config", default=str(DEFAULT_CONFIG), help="TOML file with [plans.NAME]")
+    p.add_argument("--config", default=None,
+                   help="TOML file with [plans.NAME] (default: SEQAUDIT_CONFIG, else "
+                        "config/seqaudit.toml)")
     p.add_argument("--json", action="store_true", help="print one JSON object keyed by plan")
     p.set_defaults(func=_cmd_plans)
 
@@ -93,10 +94,11 @@ def _cmd_plan(args, parser) -> int:
 def _cmd_plans(args, parser) -> int:
     from .plan_report import render
     from .plans import ConfigError, load_plans
+    from .settings import config_file
     from .stats import design
 
     try:
-        plans = load_plans(args.config)
+        plans = load_plans(config_file(args.config))
     except ConfigError as exc:
         parser.error(str(exc))
     out = {}

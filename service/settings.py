@@ -132,10 +132,16 @@ def _section(data: dict, name: str, cls, path: Path):
     return cls(**values)
 
 
+def config_file(config_path: str | Path | None = None, environ=None) -> Path:
+    """The configuration file: the one given, else SEQAUDIT_CONFIG, else the project's."""
+    env = os.environ if environ is None else environ
+    return Path(config_path or env.get(ENV_PREFIX + "CONFIG") or DEFAULT_CONFIG)
+
+
 def load_settings(config_path: str | Path | None = None, environ=None, **overrides) -> Settings:
     """Build settings from the config file, the environment and explicit overrides."""
     env = os.environ if environ is None else environ
-    path = Path(config_path or env.get(ENV_PREFIX + "CONFIG") or DEFAULT_CONFIG)
+    path = config_file(config_path, env)
     data = read_toml(path)
     values: dict = {"config_path": path, "plans": load_plans(path)}
     section = data.get("service", {})

@@ -1,5 +1,6 @@
 """`seqaudit plan` as a user runs it: a real subprocess of the installed command."""
 import json
+import os
 import shutil
 import subprocess
 import sys
@@ -7,10 +8,11 @@ import sys
 import pytest
 
 
-def run(*args):
+def run(*args, env=None):
     exe = shutil.which("seqaudit")
     cmd = [exe, *args] if exe else [sys.executable, "-m", "service.cli", *args]
-    return subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    return subprocess.run(cmd, capture_output=True, text=True, timeout=120,
+                          env=None if env is None else {**os.environ, **env})
 
 
 def test_json_reference_plan():
@@ -80,3 +82,17 @@ def test_plans_command_prints_demo_plans():
     out = run("plans")
     assert out.returncode == 0, out.stderr
     assert "Plan 'dispensers'" in out.stdout and "Plan 'scales_capped'" in out.stdout
+
+
+def test_plans_command_reads_the_configuration_the_environment_names(tmp_path):
+    solo = tmp_path / "solo.toml"
+    solo.write_text("[plans.solo]\np0 = 0.02\np1 = 0.08\nalpha = 0.05\nbeta = 0.1\n")
+    out = run("plans", env={"SEQAUDIT_CONFIG": str(solo)})
+    assert out.returncode == 0, out.stderr
+    assert "Plan 'solo'" in out.stdout and "Plan 'dispensers'" not in out.stdout
+    # --config still wins over the environment
+    other = tmp_path / "other.toml"
+    other.write_text("[plans.other]\np0 = 0.02\np1 = 0.08\nalpha = 0.05\nbeta = 0.1\n")
+    out = run("plans", "--config", str(other), env={"SEQAUDIT_CONFIG": str(solo)})
+    assert out.returncode == 0, out.stderr
+    assert "Plan 'other'" in out.stdout and "Plan 'solo'" not in out.stdout
