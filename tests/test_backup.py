@@ -83,7 +83,12 @@ def test_scheduled_backup_keeps_the_newest(tmp_path):
     made = [scheduled_backup(db, folder, 3, f"2026-12-0{d}T02:30:00Z") for d in range(1, 7)]
     left = sorted(p.name for p in folder.glob("*.db"))
     assert left == sorted(p.name for p in made[-3:])
-    assert not list(folder.glob("*.partial"))
+    assert not list(folder.glob("*.partial*"))
+    # each copy is one file (no -wal or -shm beside it, even after it was checked)
+    assert sorted(p.name for p in folder.iterdir()) == left
+    conn = sqlite3.connect(made[-1])
+    assert conn.execute("PRAGMA journal_mode").fetchone()[0] == "delete"
+    conn.close()
 
 
 def test_cli_backup_and_restore_check_files(tmp_path):
@@ -94,6 +99,7 @@ def test_cli_backup_and_restore_check_files(tmp_path):
     store.close()
     out = run("backup", "--out", str(tmp_path / "b.db"), "--db", str(db))
     assert out.returncode == 0 and "integrity check ok" in out.stdout
+    assert not list(tmp_path.glob("b.db?*"))      # nothing beside the copy
     junk = tmp_path / "junk.db"
     junk.write_bytes(b"this is not a database at all" * 100)
     bad = run("restore", str(junk), "--db", str(tmp_path / "t.db"))

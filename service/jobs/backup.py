@@ -41,6 +41,9 @@ def backup_to(db_path: Path, out: Path) -> Path:
     dst = sqlite3.connect(tmp)
     try:
         src.backup(dst, pages=256)  # page batches: writers are not blocked for long
+        # the copy is one self-contained file: a copy left in WAL mode would have its check
+        # (and any later reader) leave -wal and -shm files beside it
+        dst.execute("PRAGMA journal_mode = DELETE")
     finally:
         dst.close()
         src.close()
