@@ -2,7 +2,11 @@
 from __future__ import annotations
 
 from .cautions import caution_lines
-from .stats.design import DesignResult
+from .stats.design import TABLE_UNITS, DesignResult
+
+# beyond this many rows after the first looks, the text report shows only the first possible
+# clear and the cap (a long plan's table would run to hundreds of rows)
+_MORE_ROWS = 20
 
 
 def _num(value, digits=4) -> str:
@@ -27,7 +31,7 @@ def warning_lines(d: dict) -> list[str]:
     return out + [""]
 
 
-def render(result: DesignResult, title: str | None = None, table_units: int = 30) -> str:
+def render(result: DesignResult, title: str | None = None) -> str:
     d = result.to_dict()
     plan, bnd, ex, wd, fx = d["plan"], d["boundaries"], d["exact"], d["wald"], d["fixed_sample"]
     rc = d["recheck"]
@@ -111,13 +115,20 @@ def render(result: DesignResult, title: str | None = None, table_units: int = 30
             lines.append(f"  {r['p']:>8.4g}  {r['p_flag']:>8.4f}  {r['p_clear']:>8.4f}  "
                          f"{r['asn']:>14.1f}  {_units(r['units_q50']):>7}  "
                          f"{_units(r['units_q90']):>7}  {_units(r['units_q99']):>7}")
+    # every look among the first TABLE_UNITS, then the looks where a number changes, as far
+    # as the first possible clear and flag or the cap (DesignResult.decision_numbers)
     rows = d["decision_numbers"]
-    lines += ["", "Decision numbers at the looks (d = nonconforming so far; after the first "
-              f"{table_units} rows only where a number changes)",
+    first, later = rows[:TABLE_UNITS], rows[TABLE_UNITS:]
+    what = f"every look up to {first[-1]['n']} units" if first else "no looks"
+    if later and len(later) <= _MORE_ROWS:
+        what += f", then the looks where a number changes up to {later[-1]['n']} units"
+    elif later:
+        what += (f", then the first possible clear and the cap (all {len(later)} later rows "
+                 "are in the JSON output, --json)")
+        later = [r for r in later if r["at_cap"] or r["n"] == ex["first_clear_units"]]
+    lines += ["", f"Decision numbers at the looks (d = nonconforming so far): {what}",
               f"  {'units':>7}  {'clear if d <=':>13}  {'flag if d >=':>12}"]
-    shown = rows[:table_units] + [r for r in rows[table_units:]
-                                  if r["at_cap"] or r["n"] == ex["first_clear_units"]]
-    for row in (rows if len(rows) <= table_units + 20 else shown):
+    for row in first + later:
         acc = "-" if row["accept"] is None else str(row["accept"])
         rej = "-" if row["reject"] is None else str(row["reject"])
         note = "  (at the cap, cut rule)" if row["at_cap"] else ""
