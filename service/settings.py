@@ -61,6 +61,7 @@ class Settings:
     max_record_units: int = 10_000           # units in one record (at most 100,000)
     docs_public: bool = True                 # /docs, /redoc, /openapi.json without a key
     request_read_timeout_s: float = 30.0     # a request's headers and body must arrive in this
+    require_draw: bool = False               # every plan requires draws, whatever its table says
     plans: dict[str, PlanSpec] = field(default_factory=dict)
     schedule: ScheduleSettings = field(default_factory=ScheduleSettings)
     delivery: DeliverySettings = field(default_factory=DeliverySettings)
@@ -77,7 +78,8 @@ _SERVICE_KEYS = {"db": ("db_path", Path), "host": ("host", str), "port": ("port"
                  "rate_per_s": ("rate_per_s", float), "rate_burst": ("rate_burst", float),
                  "max_record_units": ("max_record_units", int),
                  "docs_public": ("docs_public", bool),
-                 "request_read_timeout_s": ("request_read_timeout_s", float)}
+                 "request_read_timeout_s": ("request_read_timeout_s", float),
+                 "require_draw": ("require_draw", bool)}
 
 #: The schema's own bound on ``units``; max_record_units may not exceed it.
 UNITS_HARD_LIMIT = 100_000
@@ -164,6 +166,13 @@ def load_settings(config_path: str | Path | None = None, environ=None, **overrid
     if values.get("max_record_units", 0) > UNITS_HARD_LIMIT:
         raise ConfigError(f"max_record_units may be at most {UNITS_HARD_LIMIT}, got "
                           f"{values['max_record_units']}")
+    if values.get("require_draw"):
+        values["plans"] = draws_required(values["plans"])
     settings = Settings(**values)
     known = {f.name for f in fields(Settings)}
     return settings.with_overrides(**{k: v for k, v in overrides.items() if k in known})
+
+
+def draws_required(plans: dict[str, PlanSpec]) -> dict[str, PlanSpec]:
+    """The plans, each with ``require_draw`` set: only records of drawn units are evidence."""
+    return {name: replace(spec, require_draw=True) for name, spec in plans.items()}

@@ -1,6 +1,7 @@
 """The demo scenario works from frames and draws: weekly frames, RFC 3797 draws, records of
 drawn units, assignments for the simulated tablets."""
 import json
+import os
 
 from service.commands.demo import demo_seed, feed, office, seed
 from service.demo_scenario import DRIFTING, agencies
@@ -65,3 +66,36 @@ def test_tablets_work_from_assignments_and_the_office_tops_up(tmp_path):
         assert made >= 1
         assert fid in {a["facility_id"] for a in store.assignments()}
     assert verify_database(store).ok
+
+
+def test_the_servers_workers_keep_the_demos_draw_rule(tmp_path, monkeypatch):
+    """Workers rebuild their settings from the environment `serve` exports: the cycles they
+    open (a facility registered later, a new cycle, a remonitor) must require draws too."""
+    from service.commands.demo import demo_settings
+    from service.commands.serve import export_settings
+    from service.settings import load_settings
+
+    monkeypatch.setattr(os, "environ", dict(os.environ))    # export_settings writes here
+    plain = quiet_settings(tmp_path)
+    settings = demo_settings(plain)
+    assert settings.plans and all(s.require_draw for s in settings.plans.values())
+    export_settings(settings)
+    rebuilt = load_settings()
+    assert rebuilt.require_draw and rebuilt.plans.keys() == settings.plans.keys()
+    assert all(spec.require_draw for spec in rebuilt.plans.values())
+    # without the demo nothing changes: the plans' own tables decide
+    export_settings(plain)
+    assert not any(spec.require_draw for spec in load_settings().plans.values())
+
+
+def test_service_wide_require_draw_in_the_config_file(tmp_path):
+    from service.settings import load_settings
+
+    config = tmp_path / "c.toml"
+    config.write_text("[service]\nrequire_draw = true\n[plans.a]\np0 = 0.01\np1 = 0.1\n"
+                      "alpha = 0.05\nbeta = 0.1\n[plans.b]\np0 = 0.01\np1 = 0.1\n"
+                      "alpha = 0.05\nbeta = 0.1\nrequire_draw = false\n")
+    got = load_settings(config, environ={})
+    assert got.require_draw and all(s.require_draw for s in got.plans.values())
+    assert not any(s.require_draw for s in load_settings(
+        config, environ={"SEQAUDIT_REQUIRE_DRAW": "false"}).plans.values())

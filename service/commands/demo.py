@@ -5,7 +5,6 @@ import json
 import sys
 import threading
 import time
-from dataclasses import replace
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from urllib.parse import quote
@@ -18,15 +17,15 @@ from ..operations import Monitor, PlanBook
 from ..sampling import Sampling
 from ..schemas import FacilityCreate
 from ..selection import canonical_frame
-from ..settings import Settings
+from ..settings import Settings, draws_required
 from ..store import Store
 
 
 def demo_settings(settings: Settings) -> Settings:
     """The demo runs every configured plan with ``require_draw``: only re-checks of units
-    drawn by RFC 3797 are evidence."""
-    return settings.with_overrides(plans={name: replace(spec, require_draw=True)
-                                          for name, spec in settings.plans.items()})
+    drawn by RFC 3797 are evidence. (As the service-wide setting, so that the server's
+    worker processes, which rebuild their settings, do the same.)"""
+    return settings.with_overrides(require_draw=True, plans=draws_required(settings.plans))
 
 
 def seed(settings: Settings, keys_file: Path) -> dict:

@@ -14,6 +14,7 @@ def export_settings(settings: Settings) -> None:
     os.environ["SEQAUDIT_PORT"] = str(settings.port)
     os.environ["SEQAUDIT_WORKERS"] = str(settings.workers)
     os.environ["SEQAUDIT_REQUEST_READ_TIMEOUT_S"] = str(settings.request_read_timeout_s)
+    os.environ["SEQAUDIT_REQUIRE_DRAW"] = "true" if settings.require_draw else "false"
 
 
 def check_database(settings: Settings) -> str | None:
