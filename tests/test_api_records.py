@@ -57,7 +57,7 @@ def test_batch_keeps_good_records_and_reports_each_bad_one(client, keys):
                                           "duplicate", "duplicate", "invalid", "invalid",
                                           "invalid", "invalid"]
     assert res[1]["errors"][0]["field"] == "records[1].facility_id"
-    assert res[2]["errors"][0]["field"] == "records[2]"
+    assert res[2]["errors"][0]["field"] == "records[2].nonconforming"
     assert "cannot exceed" in res[2]["errors"][0]["message"]
     assert res[6]["errors"][0]["field"] == "records[6].observed_at"
     assert {e["field"] for e in res[7]["errors"]} >= {"records[7].facility_id",
